@@ -1,0 +1,146 @@
+"""Benchmark: search speed, the cost of recording, bytes per node, codecs, bayg29.
+
+Run: python tests/bench/bench_search.py
+Ratios are measured side by side in this one run; each time is the best of three.
+"""
+
+from __future__ import annotations
+
+import tempfile
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import lz4.frame
+import numpy as np
+import zstandard
+
+from tracer.frames import BestUpdate, EndInfo
+from tracer.load import load_instance
+from tracer.search import SearchSettings, StartTour, make_start, run_search, trail_header
+from tracer.trail_writer import TrailWriter
+
+DATA = Path(__file__).resolve().parents[1] / "data"
+REPEATS = 3
+
+
+class Keep:
+    """A sink that keeps every block (for the codec and text comparisons)."""
+
+    def __init__(self) -> None:
+        self.blocks: list[dict[str, Any]] = []
+
+    def write_nodes(self, columns: dict[str, Any]) -> None:
+        self.blocks.append(columns)
+
+    def write_best(self, update: BestUpdate) -> None:
+        pass
+
+
+def best_of(fn: Callable[[], Any]) -> tuple[float, Any]:
+    times, result = [], None
+    for _ in range(REPEATS):
+        began = time.perf_counter()
+        result = fn()
+        times.append(time.perf_counter() - began)
+    return min(times), result
+
+
+def recorded(
+    instance: Any,
+    settings: SearchSettings,
+    start: StartTour | None,
+    path: Path,
+    threaded: bool = True,
+) -> tuple[int, int]:
+    writer = TrailWriter(path, trail_header(instance, settings, start, "bench"), threaded=threaded)
+    r = run_search(instance, settings, start, sink=writer)
+    size = writer.close(
+        EndInfo(r.status, r.nodes, r.recorded, r.decisions, r.seconds, r.length, r.tour)
+    )
+    return r.nodes, size
+
+
+def main() -> None:
+    gr17 = load_instance(DATA / "gr17.tsp")
+    start = make_start(gr17, "nn", "2opt+oropt")
+    run_search(gr17, SearchSettings(cutoff=0), start)  # compile / load the cache
+    tmp = Path(tempfile.mkdtemp())
+    print("## search and recording, gr17 (17 cities), start nn+2opt+oropt\n")
+    print(
+        "| cutoff | nodes | search alone | M nodes/s | recorded (writer thread) | ratio "
+        "| recorded (no thread) | ratio | bytes/node |"
+    )
+    print("|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
+    for cutoff in (0, 4, 6):
+        s = SearchSettings(cutoff=cutoff)
+        plain, r = best_of(lambda s=s: run_search(gr17, s, start))
+        rec, (nodes, size) = best_of(lambda s=s: recorded(gr17, s, start, tmp / "b.trail"))
+        flat, _ = best_of(lambda s=s: recorded(gr17, s, start, tmp / "c.trail", False))
+        print(
+            f"| {cutoff} | {r.nodes:,} | {plain:.3f} s | {r.nodes / plain / 1e6:.2f} "
+            f"| {rec:.3f} s | {rec / plain:.2f} | {flat:.3f} s | {flat / plain:.2f} "
+            f"| {size / nodes:.2f} |"
+        )
+
+    print("\n## codecs on the same gr17 columns (cutoff 0, one core, per column)\n")
+    keep = Keep()
+    run_search(gr17, SearchSettings(cutoff=0), start, sink=keep)
+    raw = [a.tobytes() for b in keep.blocks for a in b.values()]
+    nodes = sum(len(b["city"]) for b in keep.blocks)
+    raw_bytes = sum(len(x) for x in raw)
+    zc = zstandard.ZstdCompressor(level=1)
+    codecs: dict[str, Callable[[bytes], bytes]] = {
+        "none": lambda x: x,
+        "zstd level 1": zc.compress,
+        "lz4 frame (default)": lz4.frame.compress,
+    }
+    print("| codec | bytes/node | M records/s |")
+    print("|---|---:|---:|")
+    for name, fn in codecs.items():
+        seconds, packed = best_of(lambda fn=fn: [fn(x) for x in raw])
+        size = sum(len(x) for x in packed)
+        print(f"| {name} | {size / nodes:.2f} | {nodes / seconds / 1e6:.1f} |")
+    print(f"\n(raw narrow columns: {raw_bytes / nodes:.1f} bytes a node)")
+
+    sample = keep.blocks[:4]
+    count = sum(len(b["city"]) for b in sample)
+
+    def text_lines() -> None:
+        with open(tmp / "t.txt", "w") as f:
+            for b in sample:
+                np.savetxt(f, np.column_stack(list(b.values())), fmt="%d")
+
+    def columnar() -> None:
+        with open(tmp / "t.bin", "wb") as f:
+            for b in sample:
+                for a in b.values():
+                    f.write(zc.compress(a.tobytes()))
+
+    text, _ = best_of(text_lines)
+    col, _ = best_of(columnar)
+    print(
+        f"\none text line per node vs compressed columns ({count:,} nodes): "
+        f"{text:.3f} s vs {col:.4f} s, {text / col:.0f}x slower"
+    )
+
+    bayg29 = load_instance(DATA / "bayg29.tsp")
+    for label, path in (("not recorded", None), ("recorded", tmp / "bayg29.trail")):
+        began = time.perf_counter()
+        s29 = make_start(bayg29, "nn", "2opt+oropt")
+        if path is None:
+            r29 = run_search(bayg29, SearchSettings(), s29)
+            nodes, extra = r29.nodes, ""
+        else:
+            nodes, size = recorded(bayg29, SearchSettings(), s29, path)
+            extra = f", trail {size / 1e6:.0f} MB"
+        took = time.perf_counter() - began
+        print(
+            f"\nbayg29, default settings, {label} (start tour included): {nodes:,} nodes, "
+            f"{took:.1f} s{extra}"
+        )
+
+
+if __name__ == "__main__":
+    main()

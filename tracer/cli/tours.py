@@ -1,0 +1,160 @@
+"""`prunetrail tour` and `prunetrail info`: start tours and a quick look at an instance."""
+
+from __future__ import annotations
+
+import argparse
+import time
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from rich.table import Table
+from rich.text import Text
+
+from tracer.cli._console import emit_json, out
+from tracer.errors import PrunetrailError
+from tracer.improve import IMPROVEMENTS
+from tracer.instance import MATRIX_MAX_CITIES, Instance
+from tracer.load import load_instance, load_tour
+from tracer.tours import CONSTRUCTIONS, start_tour, tour_length
+from tracer.tsplib import format_tour
+
+
+def add_start_options(parser: argparse.ArgumentParser, *, allow_none: bool) -> None:
+    """--start and --improve, shared by `tour` and `solve`."""
+    starts = [*CONSTRUCTIONS, "none"] if allow_none else list(CONSTRUCTIONS)
+    parser.add_argument(
+        "--start",
+        choices=starts,
+        default="nn",
+        help="construction: nearest neighbour, greedy edge, farthest or cheapest insertion"
+        + (", or none for an infinite start incumbent" if allow_none else "")
+        + " (default: nn)",
+    )
+    parser.add_argument(
+        "--improve",
+        choices=list(IMPROVEMENTS),
+        default="2opt+oropt",
+        help="local search run to a local optimum after the construction (default: 2opt+oropt)",
+    )
+
+
+def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
+    """Add the `tour` and `info` commands."""
+    tour = sub.add_parser(
+        "tour",
+        help="build a start tour and print its length",
+        description="Build a tour with a construction heuristic and a local search, print its "
+        "length, and optionally write it as a TSPLIB tour file.",
+    )
+    tour.add_argument("instance", help="TSPLIB .tsp/.atsp file or CSV city list")
+    add_start_options(tour, allow_none=False)
+    tour.add_argument("-o", "--output", metavar="FILE.tour", help="write the tour (TSPLIB)")
+    tour.add_argument("--json", action="store_true", help="print one JSON object")
+    tour.set_defaults(run=run_tour)
+
+    info = sub.add_parser(
+        "info",
+        help="describe an instance (and a tour's length)",
+        description="Show an instance's size, metric, symmetry, shortest and longest edge, "
+        "and a nearest-neighbour tour's length; with --tour, that tour's length too.",
+    )
+    info.add_argument("instance", help="TSPLIB .tsp/.atsp file or CSV city list")
+    info.add_argument("--tour", metavar="FILE.tour", help="a TSPLIB tour file to measure")
+    info.add_argument("--json", action="store_true", help="print one JSON object")
+    info.set_defaults(run=run_info)
+
+
+def _number(value: float | int) -> int | float:
+    return int(value) if float(value).is_integer() else float(value)
+
+
+def run_tour(args: argparse.Namespace) -> int:
+    """Build, print and optionally write a start tour."""
+    instance = load_instance(args.instance)
+    began = time.perf_counter()
+    tour = start_tour(instance.matrix, args.start, args.improve)
+    seconds = time.perf_counter() - began
+    length = tour_length(instance.matrix, tour)
+    if args.output:
+        comment = f"{args.start}+{args.improve} tour, length {length}"
+        try:
+            Path(args.output).write_text(format_tour(instance.name, tour, comment))
+        except OSError as exc:
+            raise PrunetrailError(f"cannot write {args.output}: {exc.strerror or exc}") from None
+    if args.json:
+        emit_json(
+            {
+                "instance": instance.name,
+                "n": instance.n,
+                "start": args.start,
+                "improve": args.improve,
+                "length": _number(length),
+                "tour": [int(c) for c in tour],
+                "seconds": round(seconds, 6),
+                "output": args.output,
+            }
+        )
+    else:
+        out.print(f"{args.start} + {args.improve}: length {length}  ({seconds:.3f} s)")
+        if args.output:
+            out.print(f"wrote {args.output}")
+    return 0
+
+
+def describe(instance: Instance, tour_path: str | None) -> dict[str, Any]:
+    """The facts `info` shows, as a JSON-ready map."""
+    facts: dict[str, Any] = {
+        "name": instance.name,
+        "n": instance.n,
+        "metric": instance.metric,
+        "symmetric": None,
+        "integral": instance.integral,
+        "coordinates": instance.coords is not None,
+        "min_edge": None,
+        "max_edge": None,
+        "start_tour": None,
+        "comment": instance.comment,
+        "source": instance.source,
+    }
+    if instance.n > MATRIX_MAX_CITIES:
+        facts["note"] = f"more than {MATRIX_MAX_CITIES} cities: no distance matrix is built"
+        return facts
+    matrix = instance.matrix
+    facts["symmetric"] = instance.symmetric
+    if instance.n > 1:
+        off = matrix[~np.eye(instance.n, dtype=bool)]
+        facts["min_edge"], facts["max_edge"] = _number(off.min()), _number(off.max())
+        nn = start_tour(matrix, "nn", "none")
+        facts["start_tour"] = {"method": "nn", "length": _number(tour_length(matrix, nn))}
+    if tour_path is not None:
+        facts["tour_length"] = _number(tour_length(matrix, load_tour(tour_path, instance)))
+    return facts
+
+
+def run_info(args: argparse.Namespace) -> int:
+    """Print what an instance is."""
+    facts = describe(load_instance(args.instance), args.tour)
+    if args.json:
+        emit_json(facts)
+        return 0
+    table = Table(show_header=False, box=None)
+    labels = {
+        "name": "name",
+        "n": "cities",
+        "metric": "metric",
+        "symmetric": "symmetric",
+        "integral": "whole-number distances",
+        "min_edge": "shortest edge",
+        "max_edge": "longest edge",
+        "tour_length": "tour length (--tour)",
+        "comment": "comment",
+        "note": "note",
+    }
+    for key, label in labels.items():
+        if key in facts and facts[key] not in (None, ""):
+            table.add_row(label, Text(str(facts[key])))
+    if facts["start_tour"]:
+        table.add_row("nearest-neighbour tour", Text(str(facts["start_tour"]["length"])))
+    out.print(table)
+    return 0

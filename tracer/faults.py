@@ -1,0 +1,37 @@
+"""Planted faults: classic bound mistakes the engine can commit on purpose, by name.
+
+Each records the numbers the faulty code really computed, so demos show what such a bug
+looks like in a trail and tests prove the independent re-check finds it.
+"""
+
+from __future__ import annotations
+
+from tracer import engine
+
+#: Fault name -> (engine code, one line of help).
+FAULTS: dict[str, tuple[int, str]] = {
+    "tree-positions": (
+        engine.FAULT_POSITIONS,
+        "tree spans the path positions m+1..n-1 taken as cities, not the cities still unvisited",
+    ),
+    "stale-keys": (
+        engine.FAULT_STALE_KEYS,
+        "the tree routine's key table is not reset between nodes (trees come out too light)",
+    ),
+    "squared-lengths": (
+        engine.FAULT_SQUARED,
+        "tree and links are summed over squared edge lengths, so the bound is on another scale",
+    ),
+    "tree-spans-ends": (
+        engine.FAULT_SPANS_ENDS,
+        "tree also spans the path's two end cities while both links are still added "
+        "(overestimates, cuts the optimal branch)",
+    ),
+}
+
+
+def fault_code(name: str | None) -> int:
+    """The engine's code for a fault name (None means no fault)."""
+    if name is None:
+        return engine.FAULT_NONE
+    return FAULTS[name][0]

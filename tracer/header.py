@@ -1,0 +1,289 @@
+"""A trail's header: the instance, how the search was set up, and the column layout.
+
+`to_wire` / `from_wire` are the only translation between this and the MessagePack map, so
+the writer, the reader, the importer and hand-written writers all agree on one shape.
+`from_wire` treats the map as untrusted: every field is type-checked and size-bounded.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from tracer.instance import Instance
+from tracer.metrics import COORD_METRICS, EXPLICIT, FloatArray, Matrix, distance_matrix
+from tracer.schema import (
+    FORMAT_NAME,
+    FORMAT_VERSION,
+    HEADER,
+    KNOWN_COLUMNS,
+    MAX_COLUMNS,
+    MAX_HEADER_ITEMS,
+    MAX_TRAIL_CITIES,
+    REQUIRED_COLUMNS,
+    Column,
+    city_dtype,
+)
+
+#: Our bound's name in a header; any other name means only structural and decision checks.
+TREE_LINKS = "tree+links"
+NO_BOUND = "none"
+
+_LENGTH_DTYPES = ("<i4", "<i8", "<f8")
+
+
+class HeaderError(ValueError):
+    """A header map that does not describe a trail (message says which field)."""
+
+
+@dataclass(frozen=True)
+class SolverInfo:
+    """How the recorded search was set up.
+
+    Attributes:
+        bound: the bound's name ("tree+links", "none", or a foreign solver's own name).
+        cutoff: small-remainder cutoff: nodes with k <= cutoff unvisited cities get no bound.
+        engine: who wrote the trail.
+        order: child order ("nearest", "index") if known.
+        start: how the start tour was made ("none" for an infinite incumbent).
+        fault: the planted fault's name, if any.
+        record: what was recorded ("all", "decisions", "none").
+        record_under: path prefix whose subtree (and path) alone was recorded, if any.
+        visit_order: True when nodes were visited in another order than pre-order.
+    """
+
+    bound: str = TREE_LINKS
+    cutoff: int = 0
+    engine: str = ""
+    order: str | None = None
+    start: str | None = None
+    fault: str | None = None
+    record: str = "all"
+    record_under: tuple[int, ...] | None = None
+    visit_order: bool = False
+
+
+@dataclass(frozen=True)
+class TrailHeader:
+    """Everything a reader needs before the first node."""
+
+    instance: Instance
+    solver: SolverInfo
+    columns: tuple[Column, ...]
+    extra: dict[str, Any] = field(default_factory=dict)
+
+    def column(self, name: str) -> Column | None:
+        """The column called `name`, if the trail has it."""
+        return next((c for c in self.columns if c.name == name), None)
+
+
+def storage_matrix(instance: Instance) -> Matrix:
+    """The instance's matrix in the narrowest dtype that holds it exactly."""
+    m = instance.matrix
+    if m.dtype.kind == "f":
+        return m.astype("<f8")
+    info = np.iinfo(np.int32)
+    if m.size and (m.max() > info.max or m.min() < info.min):
+        return m.astype("<i8")
+    return m.astype("<i4")
+
+
+def to_wire(header: TrailHeader) -> dict[str, Any]:
+    """The header as a MessagePack-ready map."""
+    inst = header.instance
+    matrix = storage_matrix(inst)
+    s = header.solver
+    return {
+        "kind": HEADER,
+        "format": FORMAT_NAME,
+        "version": FORMAT_VERSION,
+        "instance": {
+            "name": inst.name,
+            "n": inst.n,
+            "metric": inst.metric,
+            "coords": None if inst.coords is None else inst.coords.astype("<f8").tobytes(),
+            "matrix": matrix.tobytes(),
+            "matrix_dtype": matrix.dtype.str,
+        },
+        "solver": {
+            "engine": s.engine,
+            "bound": s.bound,
+            "cutoff": s.cutoff,
+            "order": s.order,
+            "start": s.start,
+            "fault": s.fault,
+            "record": s.record,
+            "record_under": None if s.record_under is None else list(s.record_under),
+            "visit_order": s.visit_order,
+        },
+        "columns": [c.to_wire() for c in header.columns],
+        **header.extra,
+    }
+
+
+def _need(cond: bool, message: str) -> None:
+    if not cond:
+        raise HeaderError(message)
+
+
+def _text(value: Any, what: str, limit: int = 200) -> str:
+    _need(isinstance(value, str), f"{what} must be text")
+    return str(value)[:limit]
+
+
+def _flag(value: Any, what: str) -> bool:
+    _need(isinstance(value, bool), f"{what} must be true or false")
+    return bool(value)
+
+
+def _optional_text(value: Any, what: str) -> str | None:
+    return None if value is None else _text(value, what)
+
+
+def _array(value: Any, what: str, dtype: str, count: int) -> np.ndarray:
+    """A numeric array from raw little-endian bytes or nested lists, exactly `count` long."""
+    if isinstance(value, bytes | bytearray):
+        itemsize = np.dtype(dtype).itemsize
+        _need(
+            len(value) == count * itemsize,
+            f"{what} holds {len(value)} bytes, expected {count * itemsize}",
+        )
+        return np.frombuffer(value, dtype=dtype).copy()
+    _need(isinstance(value, list), f"{what} must be raw bytes or a list")
+    flat: list[Any] = []
+    for row in value:
+        if isinstance(row, list):
+            flat.extend(row)
+        else:
+            flat.append(row)
+        _need(len(flat) <= count, f"{what} holds more than {count} numbers")
+    _need(len(flat) == count, f"{what} holds {len(flat)} numbers, expected {count}")
+    _need(
+        all(isinstance(v, int | float) and not isinstance(v, bool) for v in flat),
+        f"{what} must hold only numbers",
+    )
+    if dtype != "<f8" and all(isinstance(v, int) for v in flat):
+        _need(all(-(2**62) < v < 2**62 for v in flat), f"{what} holds a number out of range")
+        return np.array(flat, dtype="<i8")
+    arr = np.array(flat, dtype=np.float64)
+    _need(bool(np.isfinite(arr).all()), f"{what} must hold finite numbers")
+    return arr
+
+
+def _instance(raw: Any) -> Instance:
+    _need(isinstance(raw, dict), "instance must be a map")
+    name = _text(raw.get("name", "trail"), "instance.name")
+    n = raw.get("n")
+    _need(isinstance(n, int) and not isinstance(n, bool), "instance.n must be a whole number")
+    _need(1 <= n <= MAX_TRAIL_CITIES, f"instance.n must be 1..{MAX_TRAIL_CITIES}, found {n}")
+    _need(n * n <= MAX_HEADER_ITEMS, "instance too large")
+    metric = _text(raw.get("metric", EXPLICIT), "instance.metric")
+    coords: FloatArray | None = None
+    if raw.get("coords") is not None:
+        coords = _array(raw["coords"], "instance.coords", "<f8", 2 * n).astype(np.float64)
+        coords = coords.reshape(n, 2)
+    matrix: Matrix
+    if raw.get("matrix") is not None:
+        dtype = _text(raw.get("matrix_dtype", "<i8"), "instance.matrix_dtype")
+        _need(dtype in _LENGTH_DTYPES, f"instance.matrix_dtype must be one of {_LENGTH_DTYPES}")
+        matrix = _array(raw["matrix"], "instance.matrix", dtype, n * n).reshape(n, n)
+        matrix = matrix.astype(np.float64 if matrix.dtype.kind == "f" else np.int64)
+        np.fill_diagonal(matrix, 0)
+    else:
+        _need(coords is not None, "instance needs a matrix or coordinates")
+        _need(
+            metric in COORD_METRICS,
+            f"instance.metric {metric!r} is not one of "
+            f"{', '.join(COORD_METRICS)} (give a matrix instead)",
+        )
+        assert coords is not None
+        matrix = distance_matrix(coords, metric)
+    return Instance(name=name, metric=metric, coords=coords, explicit=matrix)
+
+
+def _columns(raw: Any, n: int) -> tuple[Column, ...]:
+    _need(
+        isinstance(raw, list) and 1 <= len(raw) <= MAX_COLUMNS,
+        f"columns must be a list of 1..{MAX_COLUMNS} [name, dtype] pairs",
+    )
+    out: list[Column] = []
+    for item in raw:
+        _need(isinstance(item, list) and len(item) == 2, "each column must be [name, dtype]")
+        name = _text(item[0], "column name", 40)
+        dtype_str = _text(item[1], f"column {name}'s dtype", 8)
+        _need(name in KNOWN_COLUMNS, f"unknown column {name!r}")
+        _need(all(c.name != name for c in out), f"column {name!r} given twice")
+        try:
+            dtype = np.dtype(dtype_str)
+        except TypeError:
+            raise HeaderError(f"column {name}'s dtype {dtype_str!r} is not a numpy dtype") from None
+        _need(
+            dtype.kind in "iuf" and dtype.itemsize <= 8 and dtype.byteorder in "<|=",
+            f"column {name}'s dtype {dtype_str!r} must be a little-endian number",
+        )
+        out.append(Column(name, dtype.newbyteorder("<")))
+    for name in REQUIRED_COLUMNS:
+        _need(any(c.name == name for c in out), f"columns must include {name!r}")
+    cities = city_dtype(n)
+    for c in out:
+        if c.name in ("city", "depth", "link_in_city", "link_out_city"):
+            _need(
+                c.dtype.kind == "u" and c.dtype.itemsize >= cities.itemsize,
+                f"column {c.name} must be unsigned, at least {cities.str}",
+            )
+    return tuple(out)
+
+
+def _solver(raw: Any, n: int) -> SolverInfo:
+    if raw is None:
+        raw = {}
+    _need(isinstance(raw, dict), "solver must be a map")
+    cutoff = raw.get("cutoff", 0)
+    _need(
+        isinstance(cutoff, int) and not isinstance(cutoff, bool) and cutoff >= 0,
+        "solver.cutoff must be a whole number >= 0",
+    )
+    under = raw.get("record_under")
+    prefix: tuple[int, ...] | None = None
+    if under is not None:
+        _need(
+            isinstance(under, list)
+            and 1 <= len(under) <= n
+            and all(isinstance(c, int) and 0 <= c < n for c in under),
+            "solver.record_under must be a list of cities",
+        )
+        prefix = tuple(int(c) for c in under)
+    return SolverInfo(
+        bound=_text(raw.get("bound", TREE_LINKS), "solver.bound", 60),
+        cutoff=min(int(cutoff), n),
+        engine=_text(raw.get("engine", ""), "solver.engine"),
+        order=_optional_text(raw.get("order"), "solver.order"),
+        start=_optional_text(raw.get("start"), "solver.start"),
+        fault=_optional_text(raw.get("fault"), "solver.fault"),
+        record=_text(raw.get("record", "all"), "solver.record", 20),
+        record_under=prefix,
+        visit_order=_flag(raw.get("visit_order", False), "solver.visit_order"),
+    )
+
+
+def from_wire(raw: Any) -> TrailHeader:
+    """Validate a header map read from a file and build the header.
+
+    Raises:
+        HeaderError: naming the first field that is missing or wrong.
+    """
+    _need(isinstance(raw, dict) and raw.get("kind") == HEADER, "the first frame must be a header")
+    _need(raw.get("format") == FORMAT_NAME, f"format must be {FORMAT_NAME!r}")
+    version = raw.get("version")
+    _need(
+        version == FORMAT_VERSION,
+        f"version {version!r} is not one this reader knows ({FORMAT_VERSION})",
+    )
+    instance = _instance(raw.get("instance"))
+    return TrailHeader(
+        instance=instance,
+        solver=_solver(raw.get("solver"), instance.n),
+        columns=_columns(raw.get("columns"), instance.n),
+    )

@@ -1,0 +1,815 @@
+"""Reading the JSON Lines interchange format (a foreign solver's trace) into a trail.
+
+A foreign solver writes one JSON object a line, in the order it visited its nodes, and names
+each node's parent by id (or gives the node's whole path). One pass checks every line on its
+own and appends plain numbers to typed arrays; everything that relates lines to each other
+(ids to parents, paths to nodes, depths, the renumbering to depth-first pre-order, the visit
+column) is then worked out with numpy one depth level at a time, so no Python object per node
+outlives its line. The file is untrusted: every size is bounded, nothing in it is evaluated,
+and every problem is an `InputError` naming the line and the field.
+
+The format is specified in `tracer/TRAIL_FORMAT.md`.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from array import array
+from collections.abc import Iterator
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, BinaryIO, NoReturn, TypeGuard
+
+import numpy as np
+from numpy.typing import NDArray
+
+from tracer.errors import InputError
+from tracer.frames import BestUpdate, EndInfo
+from tracer.header import SolverInfo, TrailHeader
+from tracer.instance import Instance, explicit_instance
+from tracer.metrics import COORD_METRICS, EXPLICIT, FloatArray, Matrix
+from tracer.schema import (
+    BEST,
+    BOUND,
+    CITY,
+    DECISION,
+    DECISION_BY_NAME,
+    DECISION_NAMES,
+    DEPTH,
+    END,
+    FULL_COLUMNS,
+    HEADER,
+    LINK_IN,
+    LINK_IN_CITY,
+    LINK_OUT,
+    LINK_OUT_CITY,
+    MAX_FRAME_BYTES,
+    MAX_TRAIL_CITIES,
+    MAX_TRAIL_NODES,
+    NODE,
+    PARTIAL,
+    STATUSES,
+    TREE,
+    VISIT,
+    absent_value,
+    column_layout,
+)
+from tracer.trail_reader import Trail
+from tracer.trail_writer import TrailWriter
+
+#: `SolverInfo.engine` of an imported trail.
+ENGINE = "jsonl"
+#: Largest magnitude of a length or matrix entry: float64 holds every whole number below it,
+#: so lengths are kept exactly whichever column dtype they end up in.
+MAX_LENGTH = 2**53
+#: Largest magnitude of a coordinate, so that every distance stays below `MAX_LENGTH`.
+MAX_COORD = 2.0**50
+_LINE_KINDS = (HEADER, NODE, BEST, END)
+_TEXT_LIMIT = 200
+_BOUND_NAME_LIMIT = 60
+_BLOCK_ROWS = 1 << 16
+_INT64_MIN, _INT64_MAX = -(2**63), 2**63 - 1
+_NO_CITY = -1  # an absent link city while parsing
+
+
+def _reject_constant(name: str) -> NoReturn:
+    raise ValueError(f"{name} is not a JSON number")
+
+
+_DECODER = json.JSONDecoder(parse_constant=_reject_constant)
+
+
+def _is_int(value: Any) -> TypeGuard[int]:
+    return type(value) is int
+
+
+def _is_number(value: Any) -> TypeGuard[int | float]:
+    return type(value) is int or type(value) is float
+
+
+def _show(value: Any) -> str:
+    """A short description of a JSON value for a message (never the whole of a big one)."""
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return repr(value[:30]) + ("..." if len(value) > 30 else "")
+    if isinstance(value, list):
+        return f"a list of {len(value)}"
+    if isinstance(value, dict):
+        return "an object"
+    text = repr(value)
+    return text if len(text) <= 30 else text[:30] + "..."
+
+
+class _Columns:
+    """The per-node values of the file, in visit order, as growing typed arrays."""
+
+    def __init__(self) -> None:
+        self.line = array("q")
+        self.ident = array("q")
+        self.parent_id = array("q")  # 0 where the node gives a path (or is the root)
+        self.city = array("i")
+        self.decision = array("B")
+        self.lengths: dict[str, array[float]] = {
+            key: array("d") for key in (PARTIAL, TREE, LINK_IN, LINK_OUT, BOUND, "length")
+        }
+        self.link_city: dict[str, array[int]] = {LINK_IN: array("i"), LINK_OUT: array("i")}
+        # Nodes given by path: their visit positions, and where each path starts in `flat`.
+        self.path_node = array("q")
+        self.path_start = array("q")
+        self.flat = array("H")
+
+    def __len__(self) -> int:
+        return len(self.ident)
+
+
+@dataclass
+class _Best:
+    line: int
+    ident: int | None
+    length: float
+    tour: tuple[int, ...]
+    seen: int  # how many node lines came before it
+
+
+@dataclass
+class _Parsed:
+    """What one pass over the file found (node values still in visit order)."""
+
+    path: str
+    instance: Instance
+    solver: SolverInfo
+    nodes: _Columns
+    best: list[_Best] = field(default_factory=list)
+    status: str | None = None
+    notice: str | None = None
+
+
+class _Parser:
+    """Checks each line on its own and appends its numbers; relations are left for later."""
+
+    def __init__(self, path: str) -> None:
+        self.path = path
+        self.instance: Instance | None = None
+        self.solver = SolverInfo()
+        self.nodes = _Columns()
+        self.best: list[_Best] = []
+        self.status: str | None = None
+
+    def fail(self, line: int, key: str | None, message: str) -> InputError:
+        return InputError(self.path, f"{key!r}: {message}" if key else message, line=line)
+
+    def take(self, obj: Any, line: int) -> None:
+        """Check one decoded line and keep what it says."""
+        if not isinstance(obj, dict):
+            raise self.fail(line, None, f"expected a JSON object, found {_show(obj)}")
+        kind = obj.get("kind")
+        if kind not in _LINE_KINDS:
+            expected = ", ".join(_LINE_KINDS)
+            raise self.fail(line, "kind", f"must be one of {expected}, found {_show(kind)}")
+        if self.instance is None:
+            if kind != HEADER:
+                raise self.fail(line, "kind", "the first line must be the header")
+            self._header(obj, line)
+        elif self.status is not None:
+            raise self.fail(line, "kind", "no line may follow the end line")
+        elif kind == NODE:
+            self._node(obj, line)
+        elif kind == BEST:
+            self._best(obj, line)
+        elif kind == END:
+            self._end(obj, line)
+        else:
+            raise self.fail(line, "kind", "a second header")
+
+    # -- header ------------------------------------------------------------------------
+
+    def _header(self, obj: dict[str, Any], line: int) -> None:
+        raw = obj.get("instance")
+        if not isinstance(raw, dict):
+            raise self.fail(line, "instance", f"must be an object, found {_show(raw)}")
+        name = raw.get("name", Path(self.path).stem)
+        if not isinstance(name, str) or len(name) > _TEXT_LIMIT:
+            raise self.fail(
+                line, "instance.name", f"must be text of at most {_TEXT_LIMIT} characters"
+            )
+        coords = None if raw.get("coords") is None else self._coords(raw["coords"], line)
+        if raw.get("matrix") is not None:
+            metric = raw.get("metric", EXPLICIT)
+            if metric != EXPLICIT:
+                raise self.fail(
+                    line, "instance.metric", f"must be absent or {EXPLICIT!r} with a matrix"
+                )
+            matrix = self._matrix(raw["matrix"], line)
+            if coords is not None and len(coords) != len(matrix):
+                raise self.fail(
+                    line,
+                    "instance.coords",
+                    f"lists {len(coords)} cities but the matrix has {len(matrix)}",
+                )
+            self.instance = explicit_instance(name, matrix, coords, source=self.path)
+        elif coords is None:
+            raise self.fail(line, "instance", "needs 'coords' (with 'metric') or 'matrix'")
+        else:
+            metric = raw.get("metric")
+            if metric not in COORD_METRICS:
+                raise self.fail(
+                    line,
+                    "instance.metric",
+                    f"must be one of {', '.join(COORD_METRICS)}, found {_show(metric)}",
+                )
+            self.instance = Instance(name=name, metric=metric, coords=coords, source=self.path)
+        self.solver = self._solver(obj.get("solver"), line, self.instance.n)
+
+    def _cities(self, raw: Any, line: int, key: str) -> int:
+        if not isinstance(raw, list) or not 1 <= len(raw) <= MAX_TRAIL_CITIES:
+            raise self.fail(line, key, f"must be a list of 1..{MAX_TRAIL_CITIES} rows")
+        return len(raw)
+
+    def _coords(self, raw: Any, line: int) -> FloatArray:
+        n = self._cities(raw, line, "instance.coords")
+        for i, point in enumerate(raw):
+            if not (
+                isinstance(point, list)
+                and len(point) == 2
+                and all(_is_number(v) and abs(v) <= MAX_COORD for v in point)
+            ):
+                raise self.fail(
+                    line, "instance.coords", f"city {i} must be [x, y], numbers within ±2**50"
+                )
+        return np.array(raw, dtype=np.float64).reshape(n, 2)
+
+    def _matrix(self, raw: Any, line: int) -> Matrix:
+        key = "instance.matrix"
+        n = self._cities(raw, line, key)
+        if not all(isinstance(row, list) and len(row) == n for row in raw):
+            raise self.fail(line, key, f"must be {n} rows of {n} numbers")
+        kinds = {type(v) for row in raw for v in row}
+        if not kinds <= {int, float}:
+            raise self.fail(line, key, "must hold only numbers")
+        out_of_range = self.fail(line, key, "must hold finite numbers within ±2**53")
+        try:
+            matrix = np.array(raw, dtype=np.int64 if kinds == {int} else np.float64)
+        except OverflowError:
+            raise out_of_range from None
+        if not ((matrix > -MAX_LENGTH) & (matrix < MAX_LENGTH)).all():
+            raise out_of_range
+        skew = np.argwhere(matrix != matrix.T)
+        if len(skew):
+            i, j = (int(v) for v in skew[0])
+            raise self.fail(
+                line, key, f"must be symmetric: row {i} column {j} differs from row {j} column {i}"
+            )
+        return matrix
+
+    def _solver(self, raw: Any, line: int, n: int) -> SolverInfo:
+        if not isinstance(raw, dict):
+            raise self.fail(line, "solver", f"must be an object, found {_show(raw)}")
+        bound = raw.get("bound")
+        if not isinstance(bound, str) or not 1 <= len(bound) <= _BOUND_NAME_LIMIT:
+            raise self.fail(
+                line, "solver.bound", f"must be a name of 1..{_BOUND_NAME_LIMIT} characters"
+            )
+        cutoff = raw.get("cutoff", 0)
+        if not _is_int(cutoff) or cutoff < 0:
+            raise self.fail(line, "solver.cutoff", "must be a whole number >= 0")
+        start = raw.get("start")
+        if start is not None and (not isinstance(start, str) or len(start) > _TEXT_LIMIT):
+            raise self.fail(
+                line, "solver.start", f"must be null or text of at most {_TEXT_LIMIT} characters"
+            )
+        return SolverInfo(bound=bound, cutoff=min(cutoff, n), engine=ENGINE, start=start)
+
+    # -- nodes ---------------------------------------------------------------------------
+
+    def _node(self, obj: dict[str, Any], line: int) -> None:
+        assert self.instance is not None
+        n = self.instance.n
+        nodes = self.nodes
+        visit = len(nodes)
+        if visit >= MAX_TRAIL_NODES:
+            raise self.fail(line, None, f"more than {MAX_TRAIL_NODES} nodes")
+        ident = self._present(obj, "id", line)
+        if not _is_int(ident) or not _INT64_MIN <= ident <= _INT64_MAX:
+            raise self.fail(
+                line, "id", f"must be a whole number within ±2**63, found {_show(ident)}"
+            )
+        if "path" in obj:
+            city = self._path(obj, line, n, visit)
+            parent_id = 0
+        else:
+            parent_id, city = self._parent_and_city(obj, line, n, visit)
+        decision = self._present(obj, "decision", line)
+        if not isinstance(decision, str) or decision not in DECISION_BY_NAME:
+            raise self.fail(
+                line,
+                "decision",
+                f"must be one of {', '.join(DECISION_NAMES)}, found {_show(decision)}",
+            )
+        lengths = nodes.lengths
+        lengths[PARTIAL].append(self._length(obj, PARTIAL, line, required=True))
+        lengths[TREE].append(self._length(obj, TREE, line))
+        lengths[BOUND].append(self._length(obj, BOUND, line))
+        lengths["length"].append(self._length(obj, "length", line))
+        for key in (LINK_IN, LINK_OUT):
+            link = obj.get(key)
+            if link is None:
+                nodes.link_city[key].append(_NO_CITY)
+                lengths[key].append(math.nan)
+                continue
+            if not (
+                isinstance(link, list)
+                and len(link) == 2
+                and _is_int(link[0])
+                and 0 <= link[0] < n
+                and _is_number(link[1])
+                and abs(link[1]) < MAX_LENGTH
+            ):
+                raise self.fail(
+                    line, key, f"must be null or [city 0..{n - 1}, length], found {_show(link)}"
+                )
+            nodes.link_city[key].append(link[0])
+            lengths[key].append(float(link[1]))
+        nodes.line.append(line)
+        nodes.ident.append(ident)
+        nodes.parent_id.append(parent_id)
+        nodes.city.append(city)
+        nodes.decision.append(DECISION_BY_NAME[decision])
+
+    def _path(self, obj: dict[str, Any], line: int, n: int, visit: int) -> int:
+        """Check a node given by its path; keep the path and return its last city."""
+        if "parent" in obj or "city" in obj:
+            raise self.fail(line, "path", "give either 'path' or 'parent' and 'city', not both")
+        path = obj["path"]
+        if not (
+            isinstance(path, list)
+            and 1 <= len(path) <= n
+            and all(_is_int(c) and 0 <= c < n for c in path)
+        ):
+            raise self.fail(line, "path", f"must list 1..{n} cities, each 0..{n - 1}")
+        if path[0] != 0:
+            raise self.fail(line, "path", "must start at city 0")
+        if (len(path) == 1) != (visit == 0):
+            message = "the first node is the root, [0]" if visit == 0 else "only the root is [0]"
+            raise self.fail(line, "path", message)
+        self.nodes.path_node.append(visit)
+        self.nodes.path_start.append(len(self.nodes.flat))
+        self.nodes.flat.extend(path)
+        return int(path[-1])
+
+    def _parent_and_city(
+        self, obj: dict[str, Any], line: int, n: int, visit: int
+    ) -> tuple[int, int]:
+        if "parent" not in obj:
+            raise self.fail(line, "parent", "is missing (or give 'path' instead)")
+        parent = obj["parent"]
+        city = self._present(obj, CITY, line)
+        if not _is_int(city) or not 0 <= city < n:
+            raise self.fail(line, "city", f"must be a city 0..{n - 1}, found {_show(city)}")
+        if visit == 0:
+            if parent is not None or city != 0:
+                raise self.fail(line, "parent", "the first node is the root: parent null, city 0")
+            return 0, 0
+        if parent is None:
+            raise self.fail(line, "parent", "only the first node (the root) has parent null")
+        if not _is_int(parent) or not _INT64_MIN <= parent <= _INT64_MAX:
+            raise self.fail(line, "parent", f"must be a node id, found {_show(parent)}")
+        return parent, city
+
+    def _present(self, obj: dict[str, Any], key: str, line: int) -> Any:
+        if key not in obj:
+            raise self.fail(line, key, "is missing")
+        return obj[key]
+
+    def _length(self, obj: dict[str, Any], key: str, line: int, required: bool = False) -> float:
+        value = obj.get(key)
+        if value is None:
+            if required:
+                raise self.fail(line, key, "is missing" if key not in obj else "must not be null")
+            return math.nan
+        if not _is_number(value) or not abs(value) < MAX_LENGTH:
+            raise self.fail(line, key, f"must be a number within ±2**53, found {_show(value)}")
+        return float(value)
+
+    # -- best and end ---------------------------------------------------------------------
+
+    def _best(self, obj: dict[str, Any], line: int) -> None:
+        assert self.instance is not None
+        n = self.instance.n
+        if "id" not in obj:
+            raise self.fail(
+                line, "id", "is missing (a node id, or null for a tour found elsewhere)"
+            )
+        ident = obj["id"]
+        if ident is not None and (not _is_int(ident) or not _INT64_MIN <= ident <= _INT64_MAX):
+            raise self.fail(line, "id", f"must be a node id or null, found {_show(ident)}")
+        length = self._length(obj, "length", line, required=True)
+        tour = obj.get("tour")
+        if not (
+            isinstance(tour, list)
+            and len(tour) == n
+            and all(_is_int(c) and 0 <= c < n for c in tour)
+            and len(set(tour)) == n
+            and tour[0] == 0
+        ):
+            raise self.fail(line, "tour", f"must list all {n} cities once each, starting at 0")
+        self.best.append(_Best(line, ident, length, tuple(tour), len(self.nodes)))
+
+    def _end(self, obj: dict[str, Any], line: int) -> None:
+        status = obj.get("status")
+        if status not in STATUSES:
+            raise self.fail(
+                line, "status", f"must be one of {', '.join(STATUSES)}, found {_show(status)}"
+            )
+        self.status = str(status)
+
+
+def _lines(handle: BinaryIO, path: str) -> Iterator[tuple[int, bytes, bool]]:
+    """(line number, bytes, ends with a newline) for every line, each bounded in length."""
+    number = 0
+    while raw := handle.readline(MAX_FRAME_BYTES + 1):
+        number += 1
+        if len(raw) > MAX_FRAME_BYTES:
+            raise InputError(path, f"line is longer than {MAX_FRAME_BYTES} bytes", line=number)
+        yield number, raw, raw.endswith(b"\n")
+
+
+def _parse(path: Path) -> _Parsed:
+    """One pass over the file: every line checked on its own, numbers into typed arrays."""
+    try:
+        handle = open(path, "rb")  # noqa: SIM115 (closed below)
+    except OSError as exc:
+        raise InputError(path, f"cannot read: {exc.strerror or exc}") from None
+    parser = _Parser(str(path))
+    notice = None
+    with handle:
+        for number, raw, whole in _lines(handle, str(path)):
+            try:
+                text = raw.decode("utf-8")
+                if not text.strip():
+                    continue
+                obj = _DECODER.decode(text)
+            except (ValueError, RecursionError) as exc:
+                if not whole:  # the writer stopped inside its last line
+                    notice = f"file stops inside line {number}; read {len(parser.nodes)} nodes"
+                    break
+                raise InputError(path, f"not a JSON line ({str(exc)[:80]})", line=number) from None
+            parser.take(obj, number)
+    if parser.instance is None:
+        raise InputError(path, "no header line: not a JSON Lines trace")
+    if notice is None and parser.status is None:
+        notice = f"no end line: a live or crashed run ({len(parser.nodes)} nodes so far)"
+    return _Parsed(
+        str(path),
+        parser.instance,
+        parser.solver,
+        parser.nodes,
+        parser.best,
+        parser.status,
+        notice,
+    )
+
+
+# -- relations between lines, vectorised -----------------------------------------------------
+
+
+class _Tree:
+    """Parents, depths and pre-order ids of the parsed nodes (all indexed by visit position)."""
+
+    def __init__(self, parsed: _Parsed) -> None:
+        self.path = parsed.path
+        self.n = parsed.instance.n
+        nodes = parsed.nodes
+        self.count = len(nodes)
+        self.line = np.frombuffer(nodes.line, dtype=np.int64)
+        self.ident = np.frombuffer(nodes.ident, dtype=np.int64)
+        self.city = np.frombuffer(nodes.city, dtype=np.intc).astype(np.int64)
+        self.by_path = np.zeros(self.count, dtype=np.bool_)
+        self.path_node = np.frombuffer(nodes.path_node, dtype=np.int64)
+        self.path_start = np.frombuffer(nodes.path_start, dtype=np.int64)
+        self.flat = np.frombuffer(nodes.flat, dtype=np.uint16)
+        self.by_path[self.path_node] = True
+        self.id_order = np.argsort(self.ident, kind="stable")
+        self.sorted_ids = self.ident[self.id_order]
+        self._check_ids()
+        self.parent = np.full(self.count, -1, dtype=np.int64)
+        self._link_parent_ids(np.frombuffer(nodes.parent_id, dtype=np.int64))
+        self.depth = self._depths()
+        self._by_depth, self._level_start = self._levels()
+        self.top = len(self._level_start) - 2  # the deepest level
+        self._resolve_paths()
+        self._check_paths()
+        self.pre = self._preorder()
+
+    def fail(self, node: int, key: str, message: str) -> InputError:
+        line = int(self.line[node])
+        return InputError(self.path, f"{key!r}: {message}", line=line)
+
+    def where(self, node: int) -> str:
+        """The field that placed `node` in the tree."""
+        return "path" if self.by_path[node] else "parent"
+
+    def visit_of(self, ids: NDArray[np.int64]) -> NDArray[np.int64]:
+        """Visit position of each id, or -1 where no node has it."""
+        if self.count == 0:
+            return np.full(len(ids), -1, dtype=np.int64)
+        pos = np.minimum(np.searchsorted(self.sorted_ids, ids), self.count - 1)
+        return np.where(self.sorted_ids[pos] == ids, self.id_order[pos], -1)
+
+    def level(self, d: int) -> NDArray[np.int64]:
+        """Visit positions of the nodes at depth d, in visit order."""
+        return self._by_depth[self._level_start[d] : self._level_start[d + 1]]
+
+    def _check_ids(self) -> None:
+        same = np.flatnonzero(self.sorted_ids[1:] == self.sorted_ids[:-1])
+        if same.size:
+            later = self.id_order[same + 1]
+            k = int(np.argmin(later))
+            first = int(self.id_order[same[k]])
+            raise self.fail(
+                int(later[k]),
+                "id",
+                f"{int(self.ident[first])} is already the id of the node at line "
+                f"{int(self.line[first])}",
+            )
+
+    def _link_parent_ids(self, parent_id: NDArray[np.int64]) -> None:
+        """Parents of the nodes given by parent id: known, and visited before the child."""
+        child = np.flatnonzero(~self.by_path)
+        child = child[child > 0]
+        parent = self.visit_of(parent_id[child])
+        bad = (parent < 0) | (parent >= child)
+        if bad.any():
+            k = int(np.argmax(bad))
+            node, wanted = int(child[k]), int(parent_id[child[k]])
+            if parent[k] < 0:
+                raise self.fail(node, "parent", f"no node has id {wanted}")
+            raise self.fail(
+                node,
+                "parent",
+                f"node {wanted} (line {int(self.line[parent[k]])}) is not visited before its child",
+            )
+        self.parent[child] = parent
+
+    def _depths(self) -> NDArray[np.int64]:
+        """Depth of every node by pointer jumping: known for the root and path nodes."""
+        index = np.arange(self.count, dtype=np.int64)
+        done = self.by_path.copy()
+        done[:1] = True
+        starts = self.path_start
+        ends = np.append(starts[1:], len(self.flat))
+        known = np.zeros(self.count, dtype=np.int64)
+        known[self.path_node] = ends - starts - 1
+        depth = np.where(done, known, 1)
+        jump = np.where(done, index, self.parent)
+        while not done.all():
+            depth = np.where(done, depth, depth + depth[jump])
+            done, jump = done | done[jump], jump[jump]
+        deep = np.flatnonzero(depth >= self.n)
+        if deep.size:
+            raise self.fail(
+                int(deep[0]), self.where(int(deep[0])), f"the path holds more than {self.n} cities"
+            )
+        return depth
+
+    def _levels(self) -> tuple[NDArray[np.int64], NDArray[np.int64]]:
+        """Visit positions sorted by depth (stable), and where each depth starts among them."""
+        order = np.argsort(self.depth, kind="stable")
+        top = int(self.depth.max()) if self.count else 0
+        return order, np.searchsorted(self.depth[order], np.arange(top + 2))
+
+    def _resolve_paths(self) -> None:
+        """Parents of path nodes, level by level; siblings must add different cities.
+
+        Every path node below depth 1 walks down from the root: at depth d its ancestor
+        there is the node at depth d whose parent is its ancestor at d - 1 and whose city is
+        its path's d-th city (looked up among that level's sorted (parent, city) keys).
+        """
+        walker = self.path_node[self.path_node > 0]
+        start = self.path_start[self.path_node > 0]
+        ancestor = np.zeros(len(walker), dtype=np.int64)
+        for d in range(1, self.top + 1):
+            here = self.depth[walker] == d
+            self.parent[walker[here]] = ancestor[here]
+            walker, start, ancestor = walker[~here], start[~here], ancestor[~here]
+            nodes = self.level(d)
+            keys = self.parent[nodes] * self.n + self.city[nodes]
+            order = np.argsort(keys, kind="stable")
+            ranked = keys[order]
+            twin = np.flatnonzero(ranked[1:] == ranked[:-1])
+            if twin.size:
+                later = nodes[order[twin + 1]]
+                k = int(np.argmin(later))
+                node, first = int(later[k]), int(nodes[order[twin[k]]])
+                raise self.fail(
+                    node,
+                    "path" if self.by_path[node] else CITY,
+                    f"a sibling at line {int(self.line[first])} already adds city "
+                    f"{int(self.city[node])}",
+                )
+            if walker.size:
+                wanted = ancestor * self.n + self.flat[start + d]
+                pos = np.minimum(np.searchsorted(ranked, wanted), max(len(ranked) - 1, 0))
+                found = (ranked[pos] == wanted) if len(ranked) else np.zeros(len(wanted), bool)
+                hit = nodes[order[pos]] if len(ranked) else np.zeros(len(wanted), np.int64)
+                bad = ~found | (hit >= walker)
+                if bad.any():
+                    k = int(np.argmin(np.where(bad, walker, self.count)))
+                    prefix = self.flat[start[k] : start[k] + d + 1].tolist()
+                    if not found[k]:
+                        raise self.fail(int(walker[k]), "path", f"no node has path {prefix}")
+                    raise self.fail(
+                        int(walker[k]),
+                        "path",
+                        f"the node with path {prefix} (line {int(self.line[hit[k]])}) is not "
+                        "visited before this one",
+                    )
+                ancestor = hit
+
+    def _check_paths(self) -> None:
+        """No node adds a city already on its parent's path (walking up, all nodes at once)."""
+        node = np.arange(1, self.count, dtype=np.int64)
+        ancestor = self.parent[1:]
+        while node.size:
+            hit = self.city[ancestor] == self.city[node]
+            if hit.any():
+                bad = int(node[hit].min())
+                key = "path" if self.by_path[bad] else CITY
+                raise self.fail(bad, key, f"city {int(self.city[bad])} is already on the path")
+            keep = ancestor != 0
+            node, ancestor = node[keep], self.parent[ancestor[keep]]
+
+    def _preorder(self) -> NDArray[np.int64]:
+        """Pre-order id of every node, children in visit order, one level at a time."""
+        size = np.ones(self.count, dtype=np.int64)
+        for d in range(self.top, 0, -1):
+            nodes = self.level(d)
+            np.add.at(size, self.parent[nodes], size[nodes])
+        pre = np.zeros(self.count, dtype=np.int64)
+        for d in range(1, self.top + 1):
+            nodes = self.level(d)
+            order = np.argsort(self.parent[nodes], kind="stable")
+            child, parent = nodes[order], self.parent[nodes[order]]
+            before = np.cumsum(size[child]) - size[child]
+            first = np.ones(len(child), dtype=np.bool_)
+            first[1:] = parent[1:] != parent[:-1]
+            group_start = before[first][np.cumsum(first) - 1]
+            pre[child] = pre[parent] + 1 + before - group_start
+        return pre
+
+
+def _lengths(parsed: _Parsed, tree: _Tree) -> dict[str, NDArray[np.float64]]:
+    """Length values in visit order (NaN where absent), complete paths' closing edges filled."""
+    raw = {k: np.frombuffer(v, dtype=np.float64).copy() for k, v in parsed.nodes.lengths.items()}
+    complete = tree.depth == tree.n - 1
+    length = raw.pop("length")
+    for bad, key, message in (
+        (complete & np.isnan(length), "length", "is missing: the path holds every city"),
+        (~complete & ~np.isnan(length), "length", "is only for a path holding every city"),
+        (complete & ~np.isnan(raw[TREE]), TREE, "must be null at a path holding every city"),
+        (complete & ~np.isnan(raw[LINK_IN]), LINK_IN, "must be null at a path holding every city"),
+        (
+            complete & ~np.isnan(raw[LINK_OUT]),
+            LINK_OUT,
+            "must be null at a path holding every city (its 'length' closes the tour)",
+        ),
+    ):
+        if bad.any():
+            raise tree.fail(int(np.argmax(bad)), key, message)
+    raw[LINK_OUT][complete] = length[complete] - raw[PARTIAL][complete]
+    return raw
+
+
+def _store(
+    values: NDArray[Any], absent: NDArray[np.bool_], dtype: np.dtype[Any], pre: NDArray[np.int64]
+) -> NDArray[Any]:
+    """`values` (visit order) as a column of `dtype` in pre-order, absent entries as sentinel."""
+    column = np.full(len(values), absent_value(dtype), dtype=dtype)
+    column[pre[~absent]] = values[~absent].astype(dtype)
+    return column
+
+
+def _build(parsed: _Parsed) -> Trail:
+    tree = _Tree(parsed)
+    lengths = _lengths(parsed, tree)
+    link_city = {
+        k: np.frombuffer(v, dtype=np.intc).astype(np.int64)
+        for k, v in parsed.nodes.link_city.items()
+    }
+    link_city[LINK_OUT][tree.depth == tree.n - 1] = 0
+    names: tuple[str, ...] = FULL_COLUMNS
+    if not np.isnan(lengths[BOUND]).all():
+        names += (BOUND,)
+    in_preorder = bool(np.array_equal(tree.pre, np.arange(tree.count)))
+    if not in_preorder:
+        names += (VISIT,)
+    recorded = [v[~np.isnan(v)] for v in lengths.values()] + [
+        np.array([b.length for b in parsed.best])
+    ]
+    integral = parsed.instance.integral and all(bool((v == np.floor(v)).all()) for v in recorded)
+    longest = max((float(np.abs(v).max()) for v in recorded if v.size), default=0.0) + 1.0
+    layout = column_layout(names, tree.n, integral, longest)
+    source: dict[str, tuple[NDArray[Any], NDArray[np.bool_]]] = {
+        CITY: (tree.city, np.zeros(tree.count, dtype=np.bool_)),
+        DEPTH: (tree.depth, np.zeros(tree.count, dtype=np.bool_)),
+        DECISION: (
+            np.frombuffer(parsed.nodes.decision, dtype=np.uint8),
+            np.zeros(tree.count, bool),
+        ),
+        LINK_IN_CITY: (link_city[LINK_IN], link_city[LINK_IN] == _NO_CITY),
+        LINK_OUT_CITY: (link_city[LINK_OUT], link_city[LINK_OUT] == _NO_CITY),
+        VISIT: (np.arange(tree.count), np.zeros(tree.count, dtype=np.bool_)),
+    }
+    for key, values in lengths.items():
+        source[key] = (values, np.isnan(values))
+    columns = {c.name: _store(*source[c.name], c.dtype, tree.pre) for c in layout}
+    best = _updates(parsed, tree)
+    solver = parsed.solver
+    if not in_preorder:
+        solver = replace(solver, visit_order=True)
+    header = TrailHeader(instance=parsed.instance, solver=solver, columns=layout)
+    end = None
+    if parsed.status is not None:
+        counts = np.bincount(columns[DECISION], minlength=len(DECISION_NAMES))
+        last = best[-1] if best else None
+        end = EndInfo(
+            status=parsed.status,
+            nodes=tree.count,
+            recorded=tree.count,
+            decisions={name: int(counts[i]) for i, name in enumerate(DECISION_NAMES)},
+            seconds=0.0,
+            length=None if last is None else last.length,
+            tour=None if last is None else list(last.tour),
+        )
+    return Trail(parsed.path, header, columns, best, end, parsed.notice)
+
+
+def _updates(parsed: _Parsed, tree: _Tree) -> list[BestUpdate]:
+    """Incumbent updates: `at` is the visit position of the first node to see each one.
+
+    A tour found at a node is in force from the next node visited on; a tour found outside
+    the tree (id null) from the next node after the line that reports it.
+    """
+    ids = np.array([0 if b.ident is None else b.ident for b in parsed.best], dtype=np.int64)
+    visit = tree.visit_of(ids)
+    out: list[BestUpdate] = []
+    for b, v in zip(parsed.best, visit.tolist(), strict=True):
+        if b.ident is None:
+            out.append(BestUpdate(at=b.seen, node=-1, length=b.length, tour=b.tour))
+            continue
+        if not 0 <= v < b.seen:
+            raise InputError(
+                parsed.path, f"'id': no node before this line has id {b.ident}", line=b.line
+            )
+        out.append(BestUpdate(at=v + 1, node=int(tree.pre[v]), length=b.length, tour=b.tour))
+    return sorted(out, key=lambda u: u.at)
+
+
+def check_header(text: str, path: str | Path) -> None:
+    """Check a header line as the import will, so a writer learns of a problem up front.
+
+    Raises:
+        InputError: naming the field, at line 1 of `path`.
+    """
+    try:
+        obj = _DECODER.decode(text)
+    except (ValueError, RecursionError) as exc:
+        raise InputError(path, f"not a JSON line ({str(exc)[:80]})", line=1) from None
+    _Parser(str(path)).take(obj, 1)
+
+
+def read_jsonl(path: str | Path) -> Trail:
+    """Read a JSON Lines trace into the same `Trail` the trail reader returns.
+
+    Nodes are renumbered to depth-first pre-order (children in visit order); when that
+    differs from the visit order, the `visit` column keeps each node's visit position and
+    every `best` update's `at` is a visit position.
+
+    Raises:
+        InputError: naming the line and the field of the first problem found.
+    """
+    return _build(_parse(Path(path)))
+
+
+def import_jsonl(src: str | Path, dst: str | Path) -> Trail:
+    """Read a JSON Lines trace and write it as a trail file.
+
+    A trace without an end line (a crashed run) gives a trail without an end frame.
+
+    Returns:
+        The trail as read from `src`.
+    """
+    trail = read_jsonl(src)
+    with TrailWriter(dst, trail.header) as writer:
+        for first in range(0, trail.count, _BLOCK_ROWS):
+            writer.write_nodes(
+                {k: v[first : first + _BLOCK_ROWS] for k, v in trail.columns.items()}
+            )
+        for update in trail.best:
+            writer.write_best(update)
+        if trail.end is not None:
+            writer.close(trail.end)
+    return trail

@@ -1,0 +1,518 @@
+"""Reading a trail: every complete frame, into one contiguous numpy array per column.
+
+`read_trail` passes over the file once, keeping the (small, compressed) node payloads, then
+allocates each column once from the block counts and decompresses every block into place:
+memory stays close to the decoded columns and there is never a Python object per node.
+`TrailFollower` reads the same frames incrementally from a file that is still growing.
+
+The file is untrusted: every size is bounded before anything is allocated, nothing is ever
+evaluated, and a frame that is not what it claims is reported with its byte offset while
+everything before it stays available. A file cut at any byte yields its complete frames
+and a notice saying where it stops.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, BinaryIO, TypeGuard
+
+import msgpack
+import numpy as np
+import zstandard
+from numpy.typing import NDArray
+
+from tracer.errors import InputError
+from tracer.frames import BestUpdate, EndInfo
+from tracer.header import HeaderError, TrailHeader, from_wire
+from tracer.schema import (
+    BEST,
+    BOUND,
+    CITY_COLUMNS,
+    CODECS,
+    DECISION,
+    DECISION_BY_NAME,
+    DECISION_NAMES,
+    DEPTH,
+    END,
+    HEADER,
+    LINK_IN,
+    LINK_IN_CITY,
+    LINK_OUT,
+    LINK_OUT_CITY,
+    MAX_BLOCK_NODES,
+    MAX_FRAME_BYTES,
+    MAX_TRAIL_CITIES,
+    MAX_TRAIL_NODES,
+    NODE,
+    NODES,
+    PARTIAL,
+    STATUSES,
+    TREE,
+    VISIT,
+    Column,
+    absent_value,
+)
+
+_READ_SIZE = 1 << 20
+_NODE_FRAME_BATCH = 1 << 16
+
+
+class CorruptTrailError(InputError):
+    """A frame that cannot be what it claims; `partial` holds everything read before it."""
+
+    def __init__(self, path: str, offset: int, message: str, partial: Trail | None) -> None:
+        super().__init__(path, message, offset=offset)
+        self.partial = partial
+
+
+@dataclass
+class Trail:
+    """A trail read into memory.
+
+    Attributes:
+        path: the file it came from.
+        header: instance, solver settings, column layout.
+        columns: one array per header column, all `count` long, in node-id order.
+        best: incumbent updates in the order they took effect.
+        end: the closing frame, or None for a live or crashed run.
+        notice: where and why reading stopped early, if it did.
+    """
+
+    path: str
+    header: TrailHeader
+    columns: dict[str, NDArray[Any]]
+    best: list[BestUpdate] = field(default_factory=list)
+    end: EndInfo | None = None
+    notice: str | None = None
+
+    @property
+    def count(self) -> int:
+        """How many node records the trail holds."""
+        return len(self.columns[DECISION])
+
+    @property
+    def n(self) -> int:
+        """The instance's city count."""
+        return self.header.instance.n
+
+
+def _unpacker(source: BinaryIO | None) -> msgpack.Unpacker:
+    return msgpack.Unpacker(
+        source,
+        read_size=_READ_SIZE,
+        raw=False,
+        strict_map_key=True,
+        max_buffer_size=MAX_FRAME_BYTES,
+        max_bin_len=MAX_FRAME_BYTES,
+        max_str_len=1 << 16,
+        max_array_len=max(MAX_TRAIL_CITIES, 4 * 16),
+        max_map_len=64,
+        max_ext_len=0,
+    )
+
+
+class _Frames:
+    """Validates frames one by one and keeps what they say (node payloads undecoded)."""
+
+    def __init__(self, path: str) -> None:
+        self.path = path
+        self.header: TrailHeader | None = None
+        self.blocks: list[tuple[int, str, dict[str, bytes]]] = []
+        self.total = 0
+        self.best: list[BestUpdate] = []
+        self.end: EndInfo | None = None
+        self._pending: dict[str, list[Any]] | None = None
+        self._pending_count = 0
+
+    def fail(self, offset: int, message: str) -> CorruptTrailError:
+        return CorruptTrailError(self.path, offset, message, None)
+
+    def take(self, frame: Any, offset: int) -> None:
+        if not isinstance(frame, dict):
+            if self.header is None:
+                raise self.fail(offset, "not a trail: it does not start with a header frame")
+            raise self.fail(offset, "expected a frame (a map with a 'kind')")
+        kind = frame.get("kind")
+        if self.header is None:
+            try:
+                self.header = from_wire(frame)
+            except HeaderError as exc:
+                raise self.fail(offset, f"bad header: {exc}") from None
+            return
+        if self.end is not None:
+            raise self.fail(offset, "a frame follows the end frame")
+        if kind == NODES:
+            self._flush_pending()
+            self._nodes(frame, offset)
+        elif kind == NODE:
+            self._node(frame, offset)
+        elif kind == BEST:
+            self._flush_pending()
+            self.best.append(self._best(frame, offset))
+        elif kind == END:
+            self._flush_pending()
+            self.end = self._end(frame, offset)
+        elif kind == HEADER:
+            raise self.fail(offset, "a second header frame")
+        else:
+            raise self.fail(offset, f"unknown frame kind {str(kind)[:40]!r}")
+
+    def finish(self) -> None:
+        self._flush_pending()
+
+    # -- frame kinds ---------------------------------------------------------------------
+
+    def _nodes(self, frame: dict[str, Any], offset: int) -> None:
+        assert self.header is not None
+        first, count, codec = frame.get("first"), frame.get("count"), frame.get("codec", "none")
+        if not _is_int(count) or not 0 < count <= MAX_BLOCK_NODES:
+            raise self.fail(offset, f"nodes frame count must be 1..{MAX_BLOCK_NODES}")
+        if first != self.total:
+            raise self.fail(offset, f"nodes frame starts at id {first!r}, expected {self.total}")
+        if codec not in CODECS:
+            raise self.fail(offset, f"unknown codec {str(codec)[:20]!r}; expected one of {CODECS}")
+        payload = frame.get("columns")
+        if not isinstance(payload, dict):
+            raise self.fail(offset, "nodes frame needs a 'columns' map")
+        for col in self.header.columns:
+            data = payload.get(col.name)
+            if not isinstance(data, bytes):
+                raise self.fail(offset, f"nodes frame lacks column {col.name!r}")
+            if codec == "none" and len(data) != count * col.dtype.itemsize:
+                raise self.fail(
+                    offset,
+                    f"column {col.name} holds {len(data)} bytes, "
+                    f"expected {count * col.dtype.itemsize}",
+                )
+        if self.total + count > MAX_TRAIL_NODES:
+            raise self.fail(offset, f"more than {MAX_TRAIL_NODES} nodes")
+        self.blocks.append((count, codec, {c.name: payload[c.name] for c in self.header.columns}))
+        self.total += count
+
+    def _node(self, frame: dict[str, Any], offset: int) -> None:
+        """A single-record frame (hand-written writers): batched into column blocks."""
+        assert self.header is not None
+        if "id" in frame and frame["id"] != self.total + self._pending_count:
+            raise self.fail(
+                offset,
+                f"node id {frame['id']!r} out of order, expected "
+                f"{self.total + self._pending_count}",
+            )
+        if self._pending is None:
+            self._pending = {c.name: [] for c in self.header.columns}
+        values = _node_values(frame, self.header)
+        if isinstance(values, str):
+            raise self.fail(offset, values)
+        for col in self.header.columns:
+            self._pending[col.name].append(values.get(col.name, absent_value(col.dtype)))
+        self._pending_count += 1
+        if self._pending_count >= _NODE_FRAME_BATCH:
+            self._flush_pending()
+
+    def _flush_pending(self) -> None:
+        if not self._pending_count or self._pending is None or self.header is None:
+            return
+        payload: dict[str, bytes] = {}
+        for col in self.header.columns:
+            payload[col.name] = np.array(self._pending[col.name], dtype=col.dtype).tobytes()
+        self.blocks.append((self._pending_count, "none", payload))
+        self.total += self._pending_count
+        self._pending = None
+        self._pending_count = 0
+
+    def _best(self, frame: dict[str, Any], offset: int) -> BestUpdate:
+        assert self.header is not None
+        n = self.header.instance.n
+        at, node, length, tour = (frame.get(k) for k in ("at", "node", "length", "tour"))
+        if not _is_int(at) or at < 0:
+            raise self.fail(offset, "best frame needs 'at', a node id >= 0")
+        if node is None:
+            node = -1
+        if not _is_int(node) or node < -1:
+            raise self.fail(offset, "best frame's 'node' must be a node id or -1")
+        if not _is_number(length):
+            raise self.fail(offset, "best frame needs a finite 'length'")
+        if (
+            not isinstance(tour, list)
+            or len(tour) > n
+            or not all(_is_int(c) and 0 <= c < n for c in tour)
+        ):
+            raise self.fail(offset, f"best frame's 'tour' must list at most {n} cities")
+        return BestUpdate(at=at, node=node, length=float(length), tour=tuple(tour))
+
+    def _end(self, frame: dict[str, Any], offset: int) -> EndInfo:
+        status = frame.get("status")
+        if status not in STATUSES:
+            raise self.fail(offset, f"end frame status must be one of {', '.join(STATUSES)}")
+        raw_decisions = frame.get("decisions") or {}
+        if not isinstance(raw_decisions, dict):
+            raise self.fail(offset, "end frame's 'decisions' must be a map")
+        decisions = {
+            k: int(v) for k, v in raw_decisions.items() if k in DECISION_NAMES and _is_int(v)
+        }
+        length = frame.get("length")
+        tour = frame.get("tour")
+        return EndInfo(
+            status=str(status),
+            nodes=_int_or(frame.get("nodes"), self.total),
+            recorded=_int_or(frame.get("recorded"), self.total),
+            decisions=decisions,
+            seconds=float(frame["seconds"]) if _is_number(frame.get("seconds")) else 0.0,
+            length=float(length) if _is_number(length) else None,
+            tour=[int(c) for c in tour]
+            if isinstance(tour, list) and all(_is_int(c) for c in tour)
+            else None,
+        )
+
+
+def _is_int(value: Any) -> TypeGuard[int]:
+    return isinstance(value, int) and not isinstance(value, bool)
+
+
+def _is_number(value: Any) -> TypeGuard[int | float]:
+    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def _int_or(value: Any, default: int) -> int:
+    return int(value) if _is_int(value) else default
+
+
+def _node_values(frame: dict[str, Any], header: TrailHeader) -> dict[str, int | float] | str:
+    """Column values of a single-record frame, or the reason it is malformed."""
+    out: dict[str, int | float] = {}
+    decision = frame.get("decision")
+    if isinstance(decision, str):
+        if decision not in DECISION_BY_NAME:
+            known = ", ".join(DECISION_NAMES)
+            return f"unknown decision {decision[:20]!r}; expected one of {known}"
+        out[DECISION] = int(DECISION_BY_NAME[decision])
+    elif _is_int(decision) and 0 <= decision < len(DECISION_NAMES):
+        out[DECISION] = decision
+    else:
+        return "node frame needs a 'decision'"
+    for key in (CITY_COLUMNS[0], DEPTH):
+        if not _is_int(frame.get(key)) or not 0 <= frame[key] < header.instance.n:
+            return f"node frame needs '{key}', a whole number 0..{header.instance.n - 1}"
+        out[key] = frame[key]
+    visit = frame.get(VISIT)
+    if visit is not None:
+        if not _is_int(visit) or visit < 0:
+            return f"node frame's '{VISIT}' must be a visit position >= 0"
+        out[VISIT] = visit
+    for key in (PARTIAL, TREE, BOUND):
+        value = frame.get(key)
+        if value is not None:
+            problem = _length_problem(value, header.column(key))
+            if problem:
+                return f"node frame's '{key}' {problem}"
+            out[key] = value
+    for key, city_key in ((LINK_IN, LINK_IN_CITY), (LINK_OUT, LINK_OUT_CITY)):
+        link = frame.get(key)
+        if link is None:
+            continue
+        if (
+            not isinstance(link, list)
+            or len(link) != 2
+            or not _is_int(link[0])
+            or not 0 <= link[0] < header.instance.n
+            or _length_problem(link[1], header.column(key))
+        ):
+            return f"node frame's '{key}' must be [city, length] or null"
+        out[city_key] = link[0]
+        out[key] = link[1]
+    return out
+
+
+def _length_problem(value: Any, column: Column | None) -> str | None:
+    """Why `value` cannot go into a length column, or None if it can."""
+    if not _is_number(value):
+        return "must be a finite number or null"
+    if column is not None and column.dtype.kind in "iu":
+        info = np.iinfo(column.dtype.str)
+        if not float(value).is_integer() or not info.min < value <= info.max:
+            return f"must be a whole number that fits {column.dtype.str} (the trail's lengths)"
+    return None
+
+
+def _decode_into(
+    store: dict[str, NDArray[Any]],
+    header: TrailHeader,
+    pos: int,
+    block: tuple[int, str, dict[str, bytes]],
+) -> str | None:
+    """Decode one block into store[...][pos:pos+count]; returns an error message or None."""
+    count, codec, payload = block
+    decompressor = zstandard.ZstdDecompressor()
+    for col in header.columns:
+        size = count * col.dtype.itemsize
+        data = payload[col.name]
+        if codec == "zstd":
+            try:
+                data = decompressor.decompress(data, max_output_size=size)
+            except zstandard.ZstdError as exc:
+                return f"column {col.name} does not decompress ({exc})"
+        if len(data) != size:
+            return f"column {col.name} holds {len(data)} bytes, expected {size}"
+        store[col.name][pos : pos + count] = np.frombuffer(data, dtype=col.dtype)
+    n = header.instance.n
+    for name in (*CITY_COLUMNS, DEPTH):
+        if name not in store:
+            continue
+        values = store[name][pos : pos + count]
+        bad = values >= n
+        if name in (LINK_IN_CITY, LINK_OUT_CITY):
+            bad &= values != absent_value(values.dtype)
+        if bad.any():
+            return f"column {name} holds {int(values[bad][0])}, outside 0..{n - 1}"
+    if (store[DECISION][pos : pos + count] >= len(DECISION_NAMES)).any():
+        return "column decision holds an unknown code"
+    return None
+
+
+def _consume(unpacker: msgpack.Unpacker, frames: _Frames) -> CorruptTrailError | None:
+    """Hand every complete frame to `frames`; the first corrupt one is returned, not raised."""
+    while True:
+        offset = unpacker.tell()
+        try:
+            frame = unpacker.unpack()
+        except msgpack.OutOfData:
+            return None
+        except (msgpack.UnpackException, ValueError) as exc:
+            return frames.fail(offset, f"not a valid frame ({exc})")
+        try:
+            frames.take(frame, offset)
+        except CorruptTrailError as exc:
+            return exc
+
+
+def read_trail(path: str | Path) -> Trail:
+    """Read every complete frame of a trail file.
+
+    Raises:
+        InputError: the file cannot be opened or does not start with a header.
+        CorruptTrailError: a corrupt frame (its `partial` holds everything before it).
+    """
+    p = Path(path)
+    try:
+        handle = open(p, "rb")  # noqa: SIM115 (closed below)
+        size = p.stat().st_size
+    except OSError as exc:
+        raise InputError(p, f"cannot read: {exc.strerror or exc}") from None
+    frames = _Frames(str(p))
+    with handle:
+        unpacker = _unpacker(handle)
+        corrupt = _consume(unpacker, frames)
+        stop = unpacker.tell()
+    frames.finish()
+    if frames.header is None:
+        if corrupt is not None:
+            raise corrupt
+        raise InputError(p, "empty or cut before its header: not a trail")
+    store = {c.name: np.empty(frames.total, dtype=c.dtype) for c in frames.header.columns}
+    pos = 0
+    for i, block in enumerate(frames.blocks):
+        problem = _decode_into(store, frames.header, pos, block)
+        if problem is not None:
+            store = {k: v[:pos] for k, v in store.items()}
+            partial = Trail(str(p), frames.header, store, frames.best, None)
+            raise CorruptTrailError(str(p), -1, f"node block {i} (ids {pos}..): {problem}", partial)
+        pos += block[0]
+    trail = Trail(str(p), frames.header, store, sorted(frames.best, key=lambda b: b.at), frames.end)
+    if corrupt is not None:
+        corrupt.partial = trail
+        raise corrupt
+    if stop < size:
+        trail.notice = (
+            f"file stops inside a frame at byte {stop} of {size}; "
+            f"read {trail.count} nodes before it"
+        )
+    elif trail.end is None:
+        trail.notice = f"no end frame: a live or crashed run ({trail.count} nodes so far)"
+    return trail
+
+
+class TrailFollower:
+    """Follows a trail that is still being written: `poll()` returns what was appended.
+
+    The follower keeps its own growing columns (capacity doubles), so `trail` is always a
+    view of everything read so far.
+    """
+
+    def __init__(self, path: str | Path) -> None:
+        self.path = Path(path)
+        self._handle: BinaryIO = open(self.path, "rb")  # noqa: SIM115 (closed in close())
+        self._unpacker = _unpacker(None)
+        self._frames = _Frames(str(self.path))
+        self._store: dict[str, NDArray[Any]] = {}
+        self._count = 0
+        self._decoded_blocks = 0
+        self._best_seen = 0
+
+    def poll(self) -> tuple[int, int, list[BestUpdate]]:
+        """Read what was appended since the last call.
+
+        Returns:
+            (first new node id, number of new nodes, new incumbent updates).
+
+        Raises:
+            CorruptTrailError: a corrupt frame.
+        """
+        data = self._handle.read()
+        if data:
+            self._unpacker.feed(data)
+        corrupt = _consume(self._unpacker, self._frames)
+        if corrupt is not None:
+            raise corrupt
+        if self._frames.end is not None:
+            self._frames.finish()
+        header = self._frames.header
+        first = self._count
+        if header is not None:
+            for block in self._frames.blocks[self._decoded_blocks :]:
+                self._reserve(header, self._count + block[0])
+                problem = _decode_into(self._store, header, self._count, block)
+                if problem is not None:
+                    raise CorruptTrailError(str(self.path), -1, problem, None)
+                self._count += block[0]
+                self._decoded_blocks += 1
+            self._frames.blocks.clear()
+            self._decoded_blocks = 0
+        new_best = self._frames.best[self._best_seen :]
+        self._best_seen = len(self._frames.best)
+        return first, self._count - first, new_best
+
+    @property
+    def header(self) -> TrailHeader | None:
+        """The header, once it has been read."""
+        return self._frames.header
+
+    @property
+    def trail(self) -> Trail | None:
+        """Everything read so far (None before the header arrives)."""
+        header = self._frames.header
+        if header is None:
+            return None
+        columns = {name: arr[: self._count] for name, arr in self._store.items()}
+        return Trail(
+            str(self.path),
+            header,
+            columns,
+            sorted(self._frames.best, key=lambda b: b.at),
+            self._frames.end,
+        )
+
+    def close(self) -> None:
+        """Release the file."""
+        self._handle.close()
+
+    def _reserve(self, header: TrailHeader, needed: int) -> None:
+        have = len(next(iter(self._store.values()))) if self._store else 0
+        if needed <= have:
+            return
+        capacity = max(needed, 2 * have, 1 << 16)
+        grown = {c.name: np.empty(capacity, dtype=c.dtype) for c in header.columns}
+        for name, arr in self._store.items():
+            grown[name][: self._count] = arr[: self._count]
+        self._store = grown

@@ -1,0 +1,155 @@
+"""The search tree behind a trail, as arrays: parents, subtree ranges, counts, incumbents.
+
+Node ids are depth-first pre-order, so the parent of a node is the last earlier node one
+level up and every subtree is one contiguous id range [id, end). One compiled pass over the
+depth column builds both; everything else (a node's path, the node for a path prefix,
+decision counts in a range, the incumbent in force) is answered from these arrays without
+scanning the trail. Memory: 8 bytes a node for parent and end, well under a byte for counts.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+from numba import njit
+from numpy.typing import NDArray
+
+from tracer.frames import BestUpdate
+from tracer.schema import CITY, DECISION, DECISION_NAMES, DEPTH, VISIT
+
+#: Parent of the root.
+ROOT = -1
+#: Parent of a node whose depth jumps more than one level below its predecessor.
+ORPHAN = -2
+
+_COUNT_STEP = 64
+
+
+@njit(cache=True, nogil=True)
+def _parents_and_ends(depth: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Parent and subtree end (exclusive) of every node, from pre-order depths."""
+    count = depth.shape[0]
+    parent = np.empty(count, dtype=np.int32)
+    end = np.empty(count, dtype=np.int32)
+    stack = np.empty(int(depth.max()) + 2 if count else 1, dtype=np.int32)
+    top = 0
+    for i in range(count):
+        d = int(depth[i])
+        while top > d:
+            top -= 1
+            end[stack[top]] = i
+        if d == top:
+            parent[i] = stack[top - 1] if top > 0 else ROOT
+            stack[top] = i
+            top += 1
+        else:
+            parent[i] = ORPHAN
+            end[i] = i + 1
+    while top > 0:
+        top -= 1
+        end[stack[top]] = count
+    return parent, end
+
+
+class TreeIndex:
+    """Answers tree questions about a trail's nodes in time independent of the trail's size.
+
+    Args:
+        columns: the trail's columns (at least city, depth, decision; visit if present).
+        best: the trail's incumbent updates, in the order they took effect.
+    """
+
+    def __init__(self, columns: dict[str, NDArray[Any]], best: Sequence[BestUpdate]) -> None:
+        if len(columns[DEPTH]) >= np.iinfo(np.int32).max:
+            raise ValueError("too many nodes for a 32-bit index")
+        self.city = columns[CITY]
+        self.depth = columns[DEPTH]
+        self.decision = columns[DECISION]
+        self.visit: NDArray[Any] | None = columns.get(VISIT)
+        self.count = len(self.depth)
+        self.parent, self.end = _parents_and_ends(self.depth)
+        self._cum = _block_counts(self.decision)
+        ordered = sorted(best, key=lambda b: b.at)
+        self._best_at = np.array([b.at for b in ordered], dtype=np.int64)
+        self._best_length = np.array([b.length for b in ordered], dtype=np.float64)
+
+    # -- paths and subtrees --------------------------------------------------------------
+
+    def path(self, node: int) -> list[int]:
+        """Cities from the start city to `node` (O(depth))."""
+        cities: list[int] = []
+        while node >= 0:
+            cities.append(int(self.city[node]))
+            node = int(self.parent[node])
+        return cities[::-1]
+
+    def ancestors(self, node: int) -> list[int]:
+        """Ids from the root down to `node`, inclusive."""
+        ids: list[int] = []
+        while node >= 0:
+            ids.append(node)
+            node = int(self.parent[node])
+        return ids[::-1]
+
+    def children(self, node: int) -> list[int]:
+        """Ids of `node`'s children, in order (jumping over each child's subtree)."""
+        out: list[int] = []
+        child = node + 1
+        stop = int(self.end[node])
+        while child < stop:
+            out.append(child)
+            child = int(self.end[child])
+        return out
+
+    def subtree(self, node: int) -> tuple[int, int]:
+        """The id range [start, stop) of `node`'s subtree."""
+        return node, int(self.end[node])
+
+    def node_for_prefix(self, prefix: Sequence[int]) -> int | None:
+        """The node whose path is exactly `prefix` (e.g. [0, 5, 2]), or None if not recorded."""
+        if not prefix or self.count == 0 or int(self.city[0]) != prefix[0]:
+            return None
+        node = 0
+        for city in prefix[1:]:
+            match = next((c for c in self.children(node) if int(self.city[c]) == city), None)
+            if match is None:
+                return None
+            node = match
+        return node
+
+    # -- counts and incumbents -----------------------------------------------------------
+
+    def decision_counts(self, start: int = 0, stop: int | None = None) -> dict[str, int]:
+        """How many nodes in the id range [start, stop) took each decision (O(1) in size)."""
+        stop = self.count if stop is None else stop
+        start, stop = max(0, start), min(self.count, stop)
+        if stop <= start:
+            return dict.fromkeys(DECISION_NAMES, 0)
+        counts = self._counts_before(stop) - self._counts_before(start)
+        return {name: int(counts[i]) for i, name in enumerate(DECISION_NAMES)}
+
+    def incumbent_at(self, nodes: NDArray[Any]) -> NDArray[np.float64]:
+        """The incumbent length in force when each node was visited (inf before any tour)."""
+        position = self.visit[nodes] if self.visit is not None else nodes
+        idx = np.searchsorted(self._best_at, position, side="right") - 1
+        lengths = np.concatenate(([math.inf], self._best_length))
+        return np.asarray(lengths[idx + 1], dtype=np.float64)
+
+    def _counts_before(self, stop: int) -> NDArray[np.int64]:
+        block = stop // _COUNT_STEP
+        tail = self.decision[block * _COUNT_STEP : stop]
+        counts = self._cum[block] + np.bincount(tail, minlength=len(DECISION_NAMES))
+        return np.asarray(counts, dtype=np.int64)
+
+
+def _block_counts(decision: NDArray[Any]) -> NDArray[np.int64]:
+    """cum[b, code]: nodes with `code` among ids [0, b * step)."""
+    blocks = len(decision) // _COUNT_STEP
+    cum = np.zeros((blocks + 1, len(DECISION_NAMES)), dtype=np.int64)
+    shaped = decision[: blocks * _COUNT_STEP].reshape(blocks, _COUNT_STEP)
+    for code in range(len(DECISION_NAMES)):
+        np.cumsum((shaped == code).sum(axis=1), out=cum[1:, code])
+    return cum
