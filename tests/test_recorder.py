@@ -21,6 +21,7 @@ import pytest
 from tracer.errors import InputError
 from tracer.instance import Instance
 from tracer.jsonl_import import import_jsonl
+from tracer.recheck import recheck
 from tracer.recorder import Recorder
 from tracer.schema import DECISION_BY_NAME, VISIT, Decision, absent_value, is_absent
 from tracer.trail_reader import Trail, read_trail
@@ -96,7 +97,7 @@ class Solver:
             node.length = partial + d[last][0]
             node.decision = "tour_better" if node.length < self.incumbent else "tour"
         elif len(rest) <= self.cutoff:
-            node.decision = "skip"
+            node.decision = "prune" if partial >= self.incumbent else "skip"
         else:
             node.tree = mst_weight(d, rest)
             node.link_in = cheapest(d, last, rest)
@@ -275,6 +276,8 @@ def test_recorded_search_reads_back_node_by_node(
         assert trail.columns["partial"].dtype == np.int32
     if search == "best_first":
         assert VISIT in trail.columns  # these instances are big enough to leave pre-order
+    report = recheck(trail)  # the independent re-check agrees with this independent solver
+    assert report.ok, report.first[:3]
 
 
 def test_crash_inside_with_leaves_an_interrupted_trail(tmp_path: Path) -> None:

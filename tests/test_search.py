@@ -13,9 +13,9 @@ from numpy.typing import NDArray
 
 from tests.oracles import brute_force, held_karp, permutation_tree_size
 from tests.reference import TSPLIB_OPTIMUM
+from tests.sinks import Collect
 from tracer.errors import PrunetrailError
 from tracer.faults import FAULTS
-from tracer.frames import BestUpdate
 from tracer.instance import Instance, explicit_instance
 from tracer.metrics import EUCLIDEAN
 from tracer.schema import (
@@ -32,24 +32,6 @@ from tracer.search import (
     trail_columns,
 )
 from tracer.tree_index import TreeIndex
-
-
-class Collect:
-    """A sink that keeps every block and incumbent update in memory."""
-
-    def __init__(self) -> None:
-        self.blocks: list[dict[str, NDArray[Any]]] = []
-        self.best: list[BestUpdate] = []
-
-    def write_nodes(self, columns: dict[str, NDArray[Any]]) -> None:
-        self.blocks.append(columns)
-
-    def write_best(self, update: BestUpdate) -> None:
-        self.best.append(update)
-
-    def columns(self) -> dict[str, NDArray[Any]]:
-        names = self.blocks[0].keys() if self.blocks else FULL_COLUMNS
-        return {k: np.concatenate([b[k] for b in self.blocks]) for k in names}
 
 
 def random_matrix(n: int, seed: int, integral: bool = True) -> Instance:

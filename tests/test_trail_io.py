@@ -19,6 +19,7 @@ from hypothesis import strategies as st
 from numpy.typing import NDArray
 
 from tests.reference import instance_path
+from tests.sinks import Collect
 from tracer.errors import InputError
 from tracer.frames import BestUpdate, EndInfo
 from tracer.header import TrailHeader, to_wire
@@ -27,20 +28,6 @@ from tracer.schema import FULL_COLUMNS, MAX_BLOCK_NODES, NODES
 from tracer.search import SearchSettings, make_start, run_search, trail_header
 from tracer.trail_reader import CorruptTrailError, TrailFollower, read_trail
 from tracer.trail_writer import TrailWriter
-
-
-class Collect:
-    """A sink keeping blocks and updates in memory, to compare with what was read back."""
-
-    def __init__(self) -> None:
-        self.blocks: list[dict[str, NDArray[Any]]] = []
-        self.best: list[BestUpdate] = []
-
-    def write_nodes(self, columns: dict[str, NDArray[Any]]) -> None:
-        self.blocks.append(columns)
-
-    def write_best(self, update: BestUpdate) -> None:
-        self.best.append(update)
 
 
 class Tee(Collect):
@@ -97,10 +84,6 @@ def burma_trail(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Collect
     return path, sink
 
 
-def _joined(blocks: list[dict[str, NDArray[Any]]]) -> dict[str, NDArray[Any]]:
-    return {k: np.concatenate([b[k] for b in blocks]) for k in blocks[0]}
-
-
 @pytest.mark.parametrize(("threaded", "codec"), [(True, "zstd"), (False, "zstd"), (True, "none")])
 def test_round_trip_is_exact(load_reference, tmp_path: Path, threaded: bool, codec: str) -> None:
     """Every column, update and the end frame read back exactly as written."""
@@ -113,7 +96,7 @@ def test_round_trip_is_exact(load_reference, tmp_path: Path, threaded: bool, cod
         codec=codec,
     )
     trail = read_trail(path)
-    written = _joined(sink.blocks)
+    written = sink.columns()
     assert trail.count == 200_000 and trail.notice is None
     for name in FULL_COLUMNS:
         assert trail.columns[name].dtype == written[name].dtype
@@ -138,7 +121,7 @@ def test_cut_at_every_byte_reads_complete_frames(
     path, sink = burma_trail
     data = path.read_bytes()
     header_end = len(msgpack.packb(to_wire(read_trail(path).header), use_bin_type=True))
-    written = _joined(sink.blocks)
+    written = sink.columns()
     cut_file = tmp_path / "cut.trail"
     cuts = sorted(
         {
@@ -304,7 +287,7 @@ def test_follower_sees_blocks_as_they_are_written(load_reference, tmp_path: Path
     follower.poll()
     snapshot = follower.trail
     assert snapshot is not None and snapshot.end is not None and snapshot.count == seen
-    assert np.array_equal(snapshot.columns["city"], _joined(blocks.blocks)["city"])
+    assert np.array_equal(snapshot.columns["city"], blocks.columns()["city"])
     follower.close()
 
 

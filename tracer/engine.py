@@ -129,15 +129,16 @@ def run_kernel(
     record: bool,
     no_length: float,  # what an absent length is written as
     no_city: int,  # what an absent city is written as
-    buf_city: np.ndarray,  # int32 (B,)
-    buf_depth: np.ndarray,  # int32 (B,)
-    buf_partial: np.ndarray,  # float64 (B,)
+    # the record buffer, one array per trail column, already in the trail's dtypes
+    buf_city: np.ndarray,  # (B,)
+    buf_depth: np.ndarray,
+    buf_partial: np.ndarray,
     buf_tree: np.ndarray,
     buf_link_in: np.ndarray,
-    buf_link_in_city: np.ndarray,  # int32 (B,)
+    buf_link_in_city: np.ndarray,
     buf_link_out: np.ndarray,
-    buf_link_out_city: np.ndarray,  # int32 (B,)
-    buf_decision: np.ndarray,  # uint8 (B,)
+    buf_link_out_city: np.ndarray,
+    buf_decision: np.ndarray,
     ev_at: np.ndarray,  # int64 (E,): first recorded id that sees the improvement
     ev_node: np.ndarray,  # int64 (E,): recorded id of the improving node, -1 if not recorded
     ev_length: np.ndarray,  # float64 (E,)

@@ -23,22 +23,30 @@ from tracer.frames import BestUpdate
 from tracer.header import NO_BOUND, TREE_LINKS, SolverInfo, TrailHeader
 from tracer.instance import Instance
 from tracer.schema import (
+    CITY,
     COMPLETE,
+    DECISION,
     DECISION_COLUMNS,
     DECISION_NAMES,
+    DEPTH,
     FULL_COLUMNS,
     INTERRUPTED,
     LIMIT,
+    LINK_IN,
+    LINK_IN_CITY,
+    LINK_OUT,
+    LINK_OUT_CITY,
+    PARTIAL,
+    TREE,
     Column,
     absent_value,
-    city_dtype,
     column_layout,
-    length_dtype,
 )
 from tracer.tours import start_tour, tour_length
 
-#: Default small-remainder cutoff; see tests/bench/README.md for the sweep that chose it.
-DEFAULT_CUTOFF = 4
+#: Default small-remainder cutoff: the lowest geometric-mean time over seven TSPLIB instances
+#: in the sweep of tests/bench/bench_cutoff.py (figures in tests/bench/README.md).
+DEFAULT_CUTOFF = 1
 ORDERS = ("nearest", "index")
 BOUNDS = (TREE_LINKS, NO_BOUND)
 RECORD_MODES = ("all", "decisions", "none")
@@ -213,25 +221,27 @@ def child_order(matrix: NDArray[np.float64], order: str) -> NDArray[np.int32]:
 
 
 class _Buffers:
-    """The kernel's record buffer and event table (structure of arrays)."""
+    """The kernel's record buffer (structure of arrays, already in the trail's narrow
+    dtypes, so handing a block over is a plain copy) and its event table."""
 
-    def __init__(self, n: int, rows: int) -> None:
-        self.city = np.zeros(rows, dtype=np.int32)
-        self.depth = np.zeros(rows, dtype=np.int32)
-        self.partial = np.zeros(rows, dtype=np.float64)
-        self.tree = np.zeros(rows, dtype=np.float64)
-        self.link_in = np.zeros(rows, dtype=np.float64)
-        self.link_in_city = np.zeros(rows, dtype=np.int32)
-        self.link_out = np.zeros(rows, dtype=np.float64)
-        self.link_out_city = np.zeros(rows, dtype=np.int32)
-        self.decision = np.zeros(rows, dtype=np.uint8)
+    def __init__(self, n: int, rows: int, layout: tuple[Column, ...]) -> None:
+        dtype = {c.name: c.dtype for c in layout}
+        self.city = np.zeros(rows, dtype=dtype[CITY])
+        self.depth = np.zeros(rows, dtype=dtype[DEPTH])
+        self.partial = np.zeros(rows, dtype=dtype[PARTIAL])
+        self.tree = np.zeros(rows, dtype=dtype[TREE])
+        self.link_in = np.zeros(rows, dtype=dtype[LINK_IN])
+        self.link_in_city = np.zeros(rows, dtype=dtype[LINK_IN_CITY])
+        self.link_out = np.zeros(rows, dtype=dtype[LINK_OUT])
+        self.link_out_city = np.zeros(rows, dtype=dtype[LINK_OUT_CITY])
+        self.decision = np.zeros(rows, dtype=dtype[DECISION])
         self.ev_at = np.zeros(_EVENT_ROWS, dtype=np.int64)
         self.ev_node = np.zeros(_EVENT_ROWS, dtype=np.int64)
         self.ev_length = np.zeros(_EVENT_ROWS, dtype=np.float64)
         self.ev_tour = np.zeros((_EVENT_ROWS, n), dtype=np.int32)
 
     def block(self, fill: int, columns: tuple[Column, ...]) -> dict[str, NDArray[Any]]:
-        return {c.name: getattr(self, c.name)[:fill].astype(c.dtype) for c in columns}
+        return {c.name: getattr(self, c.name)[:fill].copy() for c in columns}
 
 
 def run_search(
@@ -256,11 +266,12 @@ def run_search(
     n = instance.n
     dist = np.ascontiguousarray(instance.matrix, dtype=np.float64)
     columns = trail_columns(instance, settings)
+    layout = column_layout(FULL_COLUMNS, n, instance.integral, _longest(instance, settings))
     record = sink is not None and settings.record != "none"
-    no_length = float(absent_value(length_dtype(instance.integral, _longest(instance, settings))))
-    no_city = int(absent_value(city_dtype(n)))
     prefix = np.array(settings.record_under or (0,), dtype=np.int32)
-    buffers = _Buffers(n, BLOCK_ROWS)
+    buffers = _Buffers(n, BLOCK_ROWS, layout)
+    no_length = float(absent_value(buffers.partial.dtype))
+    no_city = int(absent_value(buffers.city.dtype))
     state = np.zeros(engine.STATE_SLOTS, dtype=np.int64)
     incumbent = np.array([math.inf if start is None else float(start.length)])
     best_tour: list[int] | None = None if start is None else [int(c) for c in start.tour]

@@ -9,6 +9,7 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, T
 from rich.table import Table
 from rich.text import Text
 
+from tracer.cli._args import count, id_range
 from tracer.cli._console import emit_json, err, out
 from tracer.recheck import KINDS, REL_TOL, Finding, RecheckReport, recheck
 from tracer.trails import open_trail
@@ -28,31 +29,6 @@ examples:
 exit status: 0 every record checks, 1 some record is wrong, 2 unreadable input."""
 
 
-def parse_range(text: str) -> tuple[int, int | None]:
-    """An id range 'A:B' (either side may be empty)."""
-    lo, sep, hi = text.partition(":")
-    try:
-        if not sep:
-            raise ValueError
-        start = int(lo) if lo.strip() else 0
-        stop = int(hi) if hi.strip() else None
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected A:B (node ids), not {text!r}") from None
-    if start < 0 or (stop is not None and stop < start):
-        raise argparse.ArgumentTypeError("expected 0 <= A <= B")
-    return start, stop
-
-
-def _count(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a whole number, not {text!r}") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError("must be 0 or more")
-    return value
-
-
 def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     """Add the `check` command."""
     p = sub.add_parser(
@@ -67,14 +43,14 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument("trail", help="a .trail file, or a .jsonl trace from another solver")
     p.add_argument(
         "--first",
-        type=_count,
+        type=count,
         default=10,
         metavar="N",
         help="show the first N wrong records (default: 10)",
     )
     p.add_argument(
         "--range",
-        type=parse_range,
+        type=id_range,
         metavar="A:B",
         dest="id_range",
         help="check only node ids A..B-1",
@@ -132,9 +108,9 @@ def _print_report(name: str, report: RecheckReport) -> None:
         )
     )
     kinds = Table("kind", "wrong records", title="wrong records by kind", title_justify="left")
-    for kind, count in report.by_kind.items():
-        if count:
-            kinds.add_row(Text(kind), Text(f"{count:,}"))
+    for kind, wrong in report.by_kind.items():
+        if wrong:
+            kinds.add_row(Text(kind), Text(f"{wrong:,}"))
     out.print(kinds)
     if report.first:
         out.print(_findings_table(report.first))
