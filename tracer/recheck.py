@@ -712,9 +712,27 @@ def _number_checks(
     bounded = bounded & live
     checks: list[_Check] = []
     values = (
-        ("tree", TREE, parts.tree, bounded, "tree is not the minimum spanning tree weight of U"),
-        ("link_in", LINK_IN, parts.link_in, bounded, "link_in is not the cheapest edge into U"),
-        ("link_out", LINK_OUT, out_value, has_out, "link_out is not the cheapest edge from U"),
+        (
+            "tree",
+            TREE,
+            parts.tree,
+            bounded,
+            "not the minimum spanning tree weight of the unvisited cities",
+        ),
+        (
+            "link_in",
+            LINK_IN,
+            parts.link_in,
+            bounded,
+            "not the cheapest edge from the path's end into the unvisited cities",
+        ),
+        (
+            "link_out",
+            LINK_OUT,
+            out_value,
+            has_out,
+            "not the cheapest edge from the unvisited cities back to the start",
+        ),
     )
     for kind, name, recomputed, expected, detail in values:
         if name in cols:

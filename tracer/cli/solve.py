@@ -41,6 +41,11 @@ EXIT_LIMIT = 3
 EXIT_INTERRUPTED = 130
 
 _EPILOG = (
+    "examples:\n"
+    "  prunetrail solve scenarios/orchard_rounds.tsp -o orchard.trail\n"
+    "  prunetrail solve scenarios/lantern_ferry.tsp --cutoff 0 --json\n"
+    "  prunetrail solve big.tsp --time-limit 60 --record decisions\n"
+    "  prunetrail solve run.tsp --record-under '0 5 2' --start none\n\n"
     "planted faults (--fault), each a classic bound mistake made on purpose:\n"
     + "\n".join(f"  {name:<16} {text}" for name, (_, text) in FAULTS.items())
     + (

@@ -47,6 +47,13 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         description="Build a tour with a construction heuristic and a local search, print its "
         "length, and optionally write it as a TSPLIB tour file.",
     )
+    tour.epilog = (
+        "examples:\n"
+        "  prunetrail tour scenarios/orchard_rounds.tsp\n"
+        "  prunetrail tour big.tsp --start greedy --improve 2opt -o big.tour --json\n\n"
+        "exit status: 0 done, 2 bad input."
+    )
+    tour.formatter_class = argparse.RawDescriptionHelpFormatter
     tour.add_argument("instance", help="TSPLIB .tsp/.atsp file or CSV city list")
     add_start_options(tour, allow_none=False)
     tour.add_argument("-o", "--output", metavar="FILE.tour", help="write the tour (TSPLIB)")
@@ -59,6 +66,13 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         description="Show an instance's size, metric, symmetry, shortest and longest edge, "
         "and a nearest-neighbour tour's length; with --tour, that tour's length too.",
     )
+    info.epilog = (
+        "examples:\n"
+        "  prunetrail info scenarios/lantern_ferry.tsp\n"
+        "  prunetrail info run.tsp --tour best.tour --json\n\n"
+        "exit status: 0 done, 2 bad input."
+    )
+    info.formatter_class = argparse.RawDescriptionHelpFormatter
     info.add_argument("instance", help="TSPLIB .tsp/.atsp file or CSV city list")
     info.add_argument("--tour", metavar="FILE.tour", help="a TSPLIB tour file to measure")
     info.add_argument("--json", action="store_true", help="print one JSON object")
