@@ -19,6 +19,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tests.reference import DATA, instance_path
+from tracer.cities_csv import parse_cities_csv
 from tracer.errors import InputError, PrunetrailError
 from tracer.instance import Instance, explicit_instance
 from tracer.load import load_instance
@@ -714,3 +715,32 @@ def test_large_instance_loads_without_matrix(tmp_path: Path, suffix: str) -> Non
     assert "matrix" not in vars(instance)  # never built, not even cached
     assert load_peak < full_matrix_bytes // 20
     assert matrix_peak < full_matrix_bytes // 100
+
+
+def test_huge_coordinate_is_refused_with_its_line() -> None:
+    """A coordinate beyond MAX_COORDINATE is refused (it would overflow integer distances)."""
+    text = (
+        "NAME : big\nTYPE : TSP\nDIMENSION : 2\nEDGE_WEIGHT_TYPE : EUC_2D\n"
+        "NODE_COORD_SECTION\n1 0 0\n2 99999999999999999999999 0\nEOF\n"
+    )
+    with pytest.raises(InputError, match="larger than") as caught:
+        parse_instance(text, "big.tsp")
+    assert caught.value.line == 7
+
+
+def test_huge_edge_weight_is_refused_with_its_line() -> None:
+    """An explicit weight beyond MAX_EDGE is refused, naming the line that holds it."""
+    text = (
+        "NAME : big\nTYPE : TSP\nDIMENSION : 3\nEDGE_WEIGHT_TYPE : EXPLICIT\n"
+        "EDGE_WEIGHT_FORMAT : UPPER_ROW\nEDGE_WEIGHT_SECTION\n1 2\n10000000000000\nEOF\n"
+    )
+    with pytest.raises(InputError, match="larger than") as caught:
+        parse_instance(text, "big.tsp")
+    assert caught.value.line == 8
+
+
+def test_huge_csv_coordinate_is_refused() -> None:
+    """A CSV coordinate beyond MAX_COORDINATE is refused with its line."""
+    with pytest.raises(InputError, match="larger than") as caught:
+        parse_cities_csv("x,y\n0,0\n1e200,3\n", "big.csv")
+    assert caught.value.line == 3

@@ -15,7 +15,7 @@ import numpy as np
 
 from tracer.errors import InputError
 from tracer.instance import Instance
-from tracer.metrics import EUCLIDEAN
+from tracer.metrics import EUCLIDEAN, MAX_COORDINATE
 from tracer.tsplib import MAX_DIMENSION, MAX_FILE_BYTES
 
 _LABEL_NAMES = ("label", "name")
@@ -30,6 +30,10 @@ def _float(path: str, line: int, token: str, what: str) -> float:
         ) from None
     if not math.isfinite(value):
         raise InputError(path, f"expected a finite number for {what}, found {token!r}", line=line)
+    if abs(value) > MAX_COORDINATE:
+        raise InputError(
+            path, f"{what} {token[:40]} is larger than the {MAX_COORDINATE:g} accepted", line=line
+        )
     return value
 
 

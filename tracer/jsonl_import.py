@@ -28,7 +28,7 @@ from tracer.errors import InputError
 from tracer.frames import BestUpdate, EndInfo
 from tracer.header import SolverInfo, TrailHeader
 from tracer.instance import Instance, explicit_instance
-from tracer.metrics import COORD_METRICS, EXPLICIT, FloatArray, Matrix
+from tracer.metrics import COORD_METRICS, EXPLICIT, MAX_COORDINATE, FloatArray, Matrix
 from tracer.schema import (
     BEST,
     BOUND,
@@ -63,8 +63,6 @@ ENGINE = "jsonl"
 #: Largest magnitude of a length or matrix entry: float64 holds every whole number below it,
 #: so lengths are kept exactly whichever column dtype they end up in.
 MAX_LENGTH = 2**53
-#: Largest magnitude of a coordinate, so that every distance stays below `MAX_LENGTH`.
-MAX_COORD = 2.0**50
 _LINE_KINDS = (HEADER, NODE, BEST, END)
 _TEXT_LIMIT = 200
 _BOUND_NAME_LIMIT = 60
@@ -235,7 +233,7 @@ class _Parser:
             if not (
                 isinstance(point, list)
                 and len(point) == 2
-                and all(_is_number(v) and abs(v) <= MAX_COORD for v in point)
+                and all(_is_number(v) and abs(v) <= MAX_COORDINATE for v in point)
             ):
                 raise self.fail(
                     line, "instance.coords", f"city {i} must be [x, y], numbers within ±2**50"

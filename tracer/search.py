@@ -181,10 +181,15 @@ def validate(instance: Instance, settings: SearchSettings) -> None:
             raise PrunetrailError(f"a path prefix holds distinct cities 0..{n - 1}")
 
 
+def full_layout(instance: Instance, settings: SearchSettings) -> tuple[Column, ...]:
+    """Every column the engine fills, as narrow as the instance allows."""
+    return column_layout(FULL_COLUMNS, instance.n, instance.integral, _longest(instance, settings))
+
+
 def trail_columns(instance: Instance, settings: SearchSettings) -> tuple[Column, ...]:
-    """The columns a trail of this search carries, as narrow as the instance allows."""
+    """The columns a trail of this search carries (all, or the shape and decisions only)."""
     names = FULL_COLUMNS if settings.record == "all" else DECISION_COLUMNS
-    return column_layout(names, instance.n, instance.integral, _longest(instance, settings))
+    return tuple(c for c in full_layout(instance, settings) if c.name in names)
 
 
 def _longest(instance: Instance, settings: SearchSettings) -> float:
@@ -202,7 +207,7 @@ def trail_header(
         cutoff=settings.cutoff,
         engine=engine_name,
         order=settings.order,
-        start="none" if start is None else start.method,
+        start=NO_START if start is None else start.method,
         fault=settings.fault,
         record=settings.record,
         record_under=settings.record_under,
@@ -265,8 +270,8 @@ def run_search(
     validate(instance, settings)
     n = instance.n
     dist = np.ascontiguousarray(instance.matrix, dtype=np.float64)
+    layout = full_layout(instance, settings)
     columns = trail_columns(instance, settings)
-    layout = column_layout(FULL_COLUMNS, n, instance.integral, _longest(instance, settings))
     record = sink is not None and settings.record != "none"
     prefix = np.array(settings.record_under or (0,), dtype=np.int32)
     buffers = _Buffers(n, BLOCK_ROWS, layout)

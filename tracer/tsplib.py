@@ -17,7 +17,15 @@ from numpy.typing import NDArray
 
 from tracer.errors import InputError
 from tracer.instance import Instance
-from tracer.metrics import COORD_METRICS, EUCLIDEAN, EXPLICIT, FloatArray, Matrix
+from tracer.metrics import (
+    COORD_METRICS,
+    EUCLIDEAN,
+    EXPLICIT,
+    MAX_COORDINATE,
+    MAX_EDGE,
+    FloatArray,
+    Matrix,
+)
 
 #: Largest file we read; the largest DIMENSION we accept for a coordinate instance, and for
 #: an explicit matrix (whose numbers are all held as text while it is parsed).
@@ -166,13 +174,17 @@ def _dimension(parsed: _Parsed, limit: int) -> int:
     return n
 
 
-def _number(parsed: _Parsed, token: str, line: int, what: str) -> float:
+def _number(
+    parsed: _Parsed, token: str, line: int, what: str, limit: float = MAX_COORDINATE
+) -> float:
     try:
         value = float(token)
     except ValueError:
         raise parsed.error(f"expected a number for {what}, found {token[:40]!r}", line) from None
     if not math.isfinite(value):
         raise parsed.error(f"expected a finite number for {what}, found {token[:40]!r}", line)
+    if abs(value) > limit:
+        raise parsed.error(f"{what} {token[:40]} is larger than the {limit:g} accepted", line)
     return value
 
 
@@ -247,6 +259,10 @@ def _edge_weights(parsed: _Parsed, n: int, fmt: str, asymmetric_type: bool) -> M
         values = np.array([int(t) for t in tokens], dtype=np.int64)
     except (ValueError, OverflowError):
         values = _float_tokens(parsed, section, tokens)
+    too_big = np.flatnonzero(np.abs(values) > MAX_EDGE)
+    if len(too_big):
+        line = _token_line(section, int(too_big[0]))
+        raise parsed.error(f"an edge weight is larger than the {MAX_EDGE:g} accepted", line)
     matrix: Matrix
     if fmt == FULL_MATRIX:
         matrix = values.reshape(n, n).copy()
@@ -264,9 +280,19 @@ def _edge_weights(parsed: _Parsed, n: int, fmt: str, asymmetric_type: bool) -> M
     return matrix
 
 
+def _token_line(section: _Section, index: int) -> int:
+    """The line holding the index-th number of a section."""
+    seen = 0
+    for line, fields in section.rows:
+        seen += len(fields)
+        if index < seen:
+            return line
+    return section.line
+
+
 def _float_tokens(parsed: _Parsed, section: _Section, tokens: list[str]) -> FloatArray:
     values = [
-        _number(parsed, token, line, "an edge weight")
+        _number(parsed, token, line, "an edge weight", MAX_EDGE)
         for line, fields in section.rows
         for token in fields
     ]
