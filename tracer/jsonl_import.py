@@ -236,7 +236,9 @@ class _Parser:
                 and all(_is_number(v) and abs(v) <= MAX_COORDINATE for v in point)
             ):
                 raise self.fail(
-                    line, "instance.coords", f"city {i} must be [x, y], numbers within ±2**50"
+                    line,
+                    "instance.coords",
+                    f"city {i} must be [x, y], numbers within ±{MAX_COORDINATE:g}",
                 )
         return np.array(raw, dtype=np.float64).reshape(n, 2)
 

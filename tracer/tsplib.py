@@ -292,7 +292,7 @@ def _token_line(section: _Section, index: int) -> int:
 
 def _float_tokens(parsed: _Parsed, section: _Section, tokens: list[str]) -> FloatArray:
     values = [
-        _number(parsed, token, line, "an edge weight", MAX_EDGE)
+        _number(parsed, token, line, "an edge weight", math.inf)  # bounded by the caller
         for line, fields in section.rows
         for token in fields
     ]
