@@ -5,8 +5,8 @@ from __future__ import annotations
 import pytest
 
 from tests.reference import instance_path
-from tracer.instance import Instance
-from tracer.load import load_instance
+from tracer.base.instance import Instance
+from tracer.formats.load import load_instance
 
 
 @pytest.fixture(scope="session")

@@ -7,8 +7,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer.frames import BestUpdate
-from tracer.schema import FULL_COLUMNS
+from tracer.base.frames import BestUpdate
+from tracer.base.schema import FULL_COLUMNS
 
 
 class Collect:

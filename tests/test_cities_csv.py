@@ -16,9 +16,9 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from tests.reference import instance_path
-from tracer.cities_csv import parse_cities_csv
-from tracer.errors import InputError
-from tracer.load import load_instance
+from tracer.base.errors import InputError
+from tracer.formats.cities_csv import parse_cities_csv
+from tracer.formats.load import load_instance
 
 _value = st.floats(min_value=-1e6, max_value=1e6, allow_nan=False, allow_infinity=False)
 _labels = st.text(alphabet="abcdefghijklmnopqrstuvwxyz ABCDEFGHIJ-", max_size=10).map(str.strip)

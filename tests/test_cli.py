@@ -10,8 +10,8 @@ import pytest
 
 from tests.reference import TSPLIB_OPTIMUM, instance_path, opt_tour_path
 from tracer.cli import main
-from tracer.faults import FAULTS
-from tracer.trail_reader import read_trail
+from tracer.search.faults import FAULTS
+from tracer.trails.reader import read_trail
 
 ROOT = Path(__file__).resolve().parents[1]
 ORCHARD = ROOT / "scenarios" / "orchard_rounds.tsp"

@@ -14,10 +14,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from tracer import jsonl_import
-from tracer.errors import InputError
-from tracer.jsonl_import import import_jsonl, read_jsonl
-from tracer.schema import (
+from tracer.base.errors import InputError
+from tracer.base.schema import (
     BOUND,
     DECISION_BY_NAME,
     MAX_TRAIL_CITIES,
@@ -25,8 +23,10 @@ from tracer.schema import (
     Decision,
     absent_value,
 )
-from tracer.trail_reader import Trail, read_trail
-from tracer.trails import open_trail
+from tracer.trails import jsonl as jsonl_import
+from tracer.trails.jsonl import import_jsonl, read_jsonl
+from tracer.trails.opening import open_trail
+from tracer.trails.reader import Trail, read_trail
 
 SPEC = Path(__file__).resolve().parent.parent / "tracer" / "TRAIL_FORMAT.md"
 

@@ -1,6 +1,6 @@
 """The independent re-check: clean engine trails pass, planted and hand-made errors are found.
 
-Trails come from the engine (`tracer.search.run_search`) on TSPLIB instances (G. Reinelt,
+Trails come from the engine (`tracer.search.driver.run_search`) on TSPLIB instances (G. Reinelt,
 "TSPLIB — A Traveling Salesman Problem Library", ORSA Journal on Computing 3(4):376-384,
 1991; files in tests/data) and on seeded random cities. Tree weights are cross-checked
 against the reference minimum spanning tree of scipy
@@ -23,8 +23,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.sparse.csgraph import minimum_spanning_tree
 
-from tracer import recheck as recheck_module
-from tracer._recheck_sets import (
+from tracer.analysis import rechecking as recheck_module
+from tracer.analysis._recheck_sets import (
     all_cities,
     city_bits,
     distinct_sets,
@@ -34,12 +34,12 @@ from tracer._recheck_sets import (
     tree_weights,
     word_count,
 )
-from tracer.faults import FAULTS
-from tracer.frames import EndInfo
-from tracer.header import TrailHeader
-from tracer.instance import Instance
-from tracer.recheck import KINDS, RecheckReport, recheck
-from tracer.schema import (
+from tracer.analysis.rechecking import KINDS, RecheckReport, recheck
+from tracer.analysis.tree_index import TreeIndex
+from tracer.base.frames import EndInfo
+from tracer.base.header import TrailHeader
+from tracer.base.instance import Instance
+from tracer.base.schema import (
     BOUND,
     CITY,
     DECISION,
@@ -55,11 +55,11 @@ from tracer.schema import (
     Decision,
     is_absent,
 )
-from tracer.search import SearchSettings, StartTour, run_search, trail_header
-from tracer.tours import start_tour, tour_length
-from tracer.trail_reader import Trail, read_trail
-from tracer.trail_writer import TrailWriter
-from tracer.tree_index import TreeIndex
+from tracer.search.driver import SearchSettings, StartTour, run_search, trail_header
+from tracer.search.faults import FAULTS
+from tracer.search.tours import start_tour, tour_length
+from tracer.trails.reader import Trail, read_trail
+from tracer.trails.writer import TrailWriter
 
 LoadReference = Callable[[str], Instance]
 Record = Callable[..., Trail]
@@ -595,9 +595,8 @@ def test_masks_round_trip(n: int, data: st.DataObject) -> None:
 def test_recheck_imports_no_search_code(tmp_path: Path) -> None:
     """The re-check never imports the search's bound code (it is a second implementation)."""
     code = (
-        "import sys, tracer.recheck\n"
-        "bad = {'tracer.engine', 'tracer.search', 'tracer.faults', 'tracer.tours', "
-        "'tracer.improve'} & set(sys.modules)\n"
+        "import sys, tracer.analysis.rechecking\n"
+        "bad = sorted(m for m in sys.modules if m.startswith('tracer.search'))\n"
         "print(sorted(bad))\n"
     )
     out = subprocess.run(

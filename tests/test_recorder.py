@@ -18,13 +18,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tracer.errors import InputError
-from tracer.instance import Instance
-from tracer.jsonl_import import import_jsonl
-from tracer.recheck import recheck
-from tracer.recorder import Recorder
-from tracer.schema import DECISION_BY_NAME, VISIT, Decision, absent_value, is_absent
-from tracer.trail_reader import Trail, read_trail
+from tracer.analysis.rechecking import recheck
+from tracer.base.errors import InputError
+from tracer.base.instance import Instance
+from tracer.base.schema import DECISION_BY_NAME, VISIT, Decision, absent_value, is_absent
+from tracer.trails.jsonl import import_jsonl
+from tracer.trails.reader import Trail, read_trail
+from tracer.trails.recorder import Recorder
 
 Matrix = Sequence[Sequence[float]]
 

@@ -14,24 +14,24 @@ from numpy.typing import NDArray
 from tests.oracles import brute_force, held_karp, permutation_tree_size
 from tests.reference import TSPLIB_OPTIMUM
 from tests.sinks import Collect
-from tracer.errors import PrunetrailError
-from tracer.faults import FAULTS
-from tracer.instance import Instance, explicit_instance
-from tracer.metrics import EUCLIDEAN
-from tracer.schema import (
+from tracer.analysis.tree_index import TreeIndex
+from tracer.base.errors import PrunetrailError
+from tracer.base.instance import Instance, explicit_instance
+from tracer.base.metrics import EUCLIDEAN
+from tracer.base.schema import (
     DECISION_COLUMNS,
     FULL_COLUMNS,
     Decision,
     is_absent,
 )
-from tracer.search import (
+from tracer.search.driver import (
     EXACT_CITY_LIMIT,
     SearchSettings,
     make_start,
     run_search,
     trail_columns,
 )
-from tracer.tree_index import TreeIndex
+from tracer.search.faults import FAULTS
 
 
 def random_matrix(n: int, seed: int, integral: bool = True) -> Instance:

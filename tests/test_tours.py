@@ -1,7 +1,7 @@
 """Start tours: constructions and local improvements, checked by brute force written here.
 
 Every check that a tour is a local optimum enumerates all moves in plain Python (its own
-loops, its own tour lengths), never the vectorised move scoring in `tracer.improve`; each
+loops, its own tour lengths), never the vectorised move scoring in `tracer.search.improve`; each
 construction is checked against a slow, literal reading of its rule. Quality is judged
 against TSPLIB's published optima (G. Reinelt, "TSPLIB — A Traveling Salesman Problem
 Library", ORSA Journal on Computing 3(4):376-384, 1991; `tests/reference.py`).
@@ -17,11 +17,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from tests.reference import TSPLIB_OPTIMUM
-from tracer.errors import PrunetrailError
-from tracer.improve import IMPROVEMENTS, or_opt, two_opt, two_opt_or_opt
-from tracer.instance import Instance
-from tracer.metrics import distance_matrix
-from tracer.tours import (
+from tracer.base.errors import PrunetrailError
+from tracer.base.instance import Instance
+from tracer.base.metrics import distance_matrix
+from tracer.search.improve import IMPROVEMENTS, or_opt, two_opt, two_opt_or_opt
+from tracer.search.tours import (
     CONSTRUCTIONS,
     cheapest_insertion,
     farthest_insertion,

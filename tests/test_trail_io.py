@@ -20,14 +20,14 @@ from numpy.typing import NDArray
 
 from tests.reference import instance_path
 from tests.sinks import Collect
-from tracer.errors import InputError
-from tracer.frames import BestUpdate, EndInfo
-from tracer.header import TrailHeader, to_wire
-from tracer.instance import Instance
-from tracer.schema import FULL_COLUMNS, MAX_BLOCK_NODES, NODES
-from tracer.search import SearchSettings, make_start, run_search, trail_header
-from tracer.trail_reader import CorruptTrailError, TrailFollower, read_trail
-from tracer.trail_writer import TrailWriter
+from tracer.base.errors import InputError
+from tracer.base.frames import BestUpdate, EndInfo
+from tracer.base.header import TrailHeader, to_wire
+from tracer.base.instance import Instance
+from tracer.base.schema import FULL_COLUMNS, MAX_BLOCK_NODES, NODES
+from tracer.search.driver import SearchSettings, make_start, run_search, trail_header
+from tracer.trails.reader import CorruptTrailError, TrailFollower, read_trail
+from tracer.trails.writer import TrailWriter
 
 
 class Tee(Collect):
@@ -77,7 +77,7 @@ def record(
 @pytest.fixture(scope="module")
 def burma_trail(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Collect]:
     """A complete burma14 trail (TSPLIB instance) and the blocks that went into it."""
-    from tracer.load import load_instance
+    from tracer.formats.load import load_instance
 
     path = tmp_path_factory.mktemp("trails") / "burma14.trail"
     sink = record(load_instance(instance_path("burma14")), path, SearchSettings(cutoff=2))
@@ -333,7 +333,7 @@ def test_signal_mid_run_leaves_interrupted_trail(tmp_path: Path, sig: signal.Sig
 
 def test_header_round_trip_keeps_settings(load_reference) -> None:
     """The header's solver settings and columns survive to_wire/from_wire."""
-    from tracer.header import from_wire
+    from tracer.base.header import from_wire
 
     instance = load_reference("ulysses16")
     settings = SearchSettings(cutoff=5, record_under=(0, 3), fault="stale-keys")

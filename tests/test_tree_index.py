@@ -9,10 +9,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from tests.sinks import Collect
-from tracer.frames import BestUpdate
-from tracer.schema import DECISION_NAMES
-from tracer.search import SearchSettings, make_start, run_search
-from tracer.tree_index import ORPHAN, ROOT, TreeIndex
+from tracer.analysis.tree_index import ORPHAN, ROOT, TreeIndex
+from tracer.base.frames import BestUpdate
+from tracer.base.schema import DECISION_NAMES
+from tracer.search.driver import SearchSettings, make_start, run_search
 
 
 @st.composite

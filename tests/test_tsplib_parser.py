@@ -19,12 +19,12 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from tests.reference import DATA, instance_path
-from tracer.cities_csv import parse_cities_csv
-from tracer.errors import InputError, PrunetrailError
-from tracer.instance import Instance, explicit_instance
-from tracer.load import load_instance
-from tracer.metrics import distance_matrix
-from tracer.tsplib import format_instance, format_tour, parse_instance, parse_tour
+from tracer.base.errors import InputError, PrunetrailError
+from tracer.base.instance import Instance, explicit_instance
+from tracer.base.metrics import distance_matrix
+from tracer.formats.cities_csv import parse_cities_csv
+from tracer.formats.load import load_instance
+from tracer.formats.tsplib import format_instance, format_tour, parse_instance, parse_tour
 
 FAST = settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 

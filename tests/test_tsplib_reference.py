@@ -8,7 +8,7 @@ Library", ORSA Journal on Computing 3(4):376-384, 1991):
   exactly the published length;
 - the TSPLIB format description's distance rules: single distances worked out by hand, and a
   scalar re-implementation with `math` written here from the rules text (never from
-  `tracer.metrics`), compared with the vectorised matrices.
+  `tracer.base.metrics`), compared with the vectorised matrices.
 """
 
 from __future__ import annotations
@@ -28,8 +28,8 @@ from tests.reference import (
     instance_path,
     opt_tour_path,
 )
-from tracer.load import load_instance, load_tour
-from tracer.metrics import distance_matrix
+from tracer.base.metrics import distance_matrix
+from tracer.formats.load import load_instance, load_tour
 
 OPTIMA_SOURCE = "TSPLIB, Reinelt 1991, table of optimal tour lengths (bestSolutions.txt)"
 RULES_SOURCE = "TSPLIB format description, distance rules"

@@ -15,10 +15,10 @@ import tempfile
 import time
 from pathlib import Path
 
-from tracer.frames import EndInfo
-from tracer.load import load_instance
-from tracer.search import SearchSettings, make_start, run_search, trail_header
-from tracer.trail_writer import TrailWriter
+from tracer.base.frames import EndInfo
+from tracer.formats.load import load_instance
+from tracer.search.driver import SearchSettings, make_start, run_search, trail_header
+from tracer.trails.writer import TrailWriter
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 INSTANCES = ("burma14", "ulysses16", "gr17", "gr21", "gr24", "fri26", "bayg29")

@@ -10,12 +10,12 @@ import time
 import tracemalloc
 from pathlib import Path
 
-from tracer.frames import EndInfo
-from tracer.load import load_instance
-from tracer.search import SearchSettings, make_start, run_search, trail_header
-from tracer.trail_reader import read_trail
-from tracer.trail_writer import TrailWriter
-from tracer.tree_index import TreeIndex
+from tracer.analysis.tree_index import TreeIndex
+from tracer.base.frames import EndInfo
+from tracer.formats.load import load_instance
+from tracer.search.driver import SearchSettings, make_start, run_search, trail_header
+from tracer.trails.reader import read_trail
+from tracer.trails.writer import TrailWriter
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 NODES = 10_000_000

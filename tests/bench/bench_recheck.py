@@ -20,15 +20,15 @@ from typing import Any
 
 import numpy as np
 
-from tracer.frames import EndInfo
-from tracer.instance import Instance
-from tracer.load import load_instance
-from tracer.recheck import recheck
-from tracer.search import SearchSettings, StartTour, run_search, trail_header
-from tracer.tours import start_tour, tour_length
-from tracer.trail_reader import Trail, read_trail
-from tracer.trail_writer import TrailWriter
-from tracer.tree_index import TreeIndex
+from tracer.analysis.rechecking import recheck
+from tracer.analysis.tree_index import TreeIndex
+from tracer.base.frames import EndInfo
+from tracer.base.instance import Instance
+from tracer.formats.load import load_instance
+from tracer.search.driver import SearchSettings, StartTour, run_search, trail_header
+from tracer.search.tours import start_tour, tour_length
+from tracer.trails.reader import Trail, read_trail
+from tracer.trails.writer import TrailWriter
 
 GR17 = Path(__file__).resolve().parents[1] / "data" / "gr17.tsp"
 CUTOFFS = (0, 4)

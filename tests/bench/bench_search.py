@@ -16,10 +16,10 @@ import lz4.frame
 import numpy as np
 import zstandard
 
-from tracer.frames import BestUpdate, EndInfo
-from tracer.load import load_instance
-from tracer.search import SearchSettings, StartTour, make_start, run_search, trail_header
-from tracer.trail_writer import TrailWriter
+from tracer.base.frames import BestUpdate, EndInfo
+from tracer.formats.load import load_instance
+from tracer.search.driver import SearchSettings, StartTour, make_start, run_search, trail_header
+from tracer.trails.writer import TrailWriter
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 REPEATS = 3

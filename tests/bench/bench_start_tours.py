@@ -16,10 +16,10 @@ from pathlib import Path
 
 import numpy as np
 
-from tracer.improve import IMPROVEMENTS
-from tracer.load import load_instance
-from tracer.metrics import IntArray, Matrix, distance_matrix
-from tracer.tours import CONSTRUCTIONS, nearest_neighbour, tour_length
+from tracer.base.metrics import IntArray, Matrix, distance_matrix
+from tracer.formats.load import load_instance
+from tracer.search.improve import IMPROVEMENTS
+from tracer.search.tours import CONSTRUCTIONS, nearest_neighbour, tour_length
 
 SEED = 20_240_601
 CITIES = 1_000

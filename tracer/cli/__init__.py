@@ -12,9 +12,9 @@ from collections.abc import Sequence
 from rich.text import Text
 
 from tracer import __version__
+from tracer.base import PrunetrailError
 from tracer.cli import check, importing, solve, tours
 from tracer.cli._console import err
-from tracer.errors import PrunetrailError
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERRUPTED = 130

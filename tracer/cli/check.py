@@ -9,11 +9,10 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, T
 from rich.table import Table
 from rich.text import Text
 
+from tracer.analysis import KINDS, REL_TOL, Finding, RecheckReport, TreeIndex, recheck
 from tracer.cli._args import count, id_range
 from tracer.cli._console import emit_json, err, out
-from tracer.recheck import KINDS, REL_TOL, Finding, RecheckReport, recheck
 from tracer.trails import open_trail
-from tracer.tree_index import TreeIndex
 
 EXIT_WRONG = 1
 

@@ -8,7 +8,7 @@ from pathlib import Path
 from rich.text import Text
 
 from tracer.cli._console import emit_json, out
-from tracer.jsonl_import import import_jsonl
+from tracer.trails import import_jsonl
 
 _EPILOG = """\
 The JSON Lines format (one object per line: a header, then node, best and end lines) is

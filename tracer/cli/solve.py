@@ -11,18 +11,16 @@ from rich.table import Table
 from rich.text import Text
 
 from tracer import __version__
+from tracer.base import TREE_LINKS, EndInfo, PrunetrailError
 from tracer.cli._args import count, path_prefix, seconds
 from tracer.cli._console import emit_json, err, out
 from tracer.cli._signals import stop_requests
 from tracer.cli.tours import add_start_options
-from tracer.errors import PrunetrailError
-from tracer.faults import FAULTS
-from tracer.frames import EndInfo
-from tracer.header import TREE_LINKS
-from tracer.load import load_instance
+from tracer.formats import load_instance
 from tracer.search import (
     BOUNDS,
     DEFAULT_CUTOFF,
+    FAULTS,
     ORDERS,
     RECORD_MODES,
     SearchResult,
@@ -32,10 +30,8 @@ from tracer.search import (
     trail_header,
     validate,
 )
-from tracer.search import (
-    Progress as SearchProgress,
-)
-from tracer.trail_writer import TrailWriter
+from tracer.search import Progress as SearchProgress
+from tracer.trails import TrailWriter
 
 EXIT_LIMIT = 3
 EXIT_INTERRUPTED = 130

@@ -11,13 +11,10 @@ import numpy as np
 from rich.table import Table
 from rich.text import Text
 
+from tracer.base import MATRIX_MAX_CITIES, Instance, PrunetrailError
 from tracer.cli._console import emit_json, out
-from tracer.errors import PrunetrailError
-from tracer.improve import IMPROVEMENTS
-from tracer.instance import MATRIX_MAX_CITIES, Instance
-from tracer.load import load_instance, load_tour
-from tracer.tours import CONSTRUCTIONS, start_tour, tour_length
-from tracer.tsplib import format_tour
+from tracer.formats import format_tour, load_instance, load_tour
+from tracer.search import CONSTRUCTIONS, IMPROVEMENTS, start_tour, tour_length
 
 
 def add_start_options(parser: argparse.ArgumentParser, *, allow_none: bool) -> None:

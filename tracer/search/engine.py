@@ -16,7 +16,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from tracer.schema import Decision
+from tracer.base import Decision
 
 # Return codes of `run_kernel`.
 DONE = 0
@@ -25,7 +25,7 @@ STEPS_SPENT = 2
 EVENTS_FULL = 3
 NODE_LIMIT = 4
 
-# Planted faults (0 = none); the user-facing names live in tracer.faults.
+# Planted faults (0 = none); the user-facing names live in tracer.search.faults.
 FAULT_NONE = 0
 FAULT_POSITIONS = 1  # tree over path positions m+1..n-1 instead of the unvisited cities
 FAULT_STALE_KEYS = 2  # Prim's key table is not reset between nodes

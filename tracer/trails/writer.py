@@ -20,9 +20,18 @@ import numpy as np
 import zstandard
 from numpy.typing import NDArray
 
-from tracer.frames import BestUpdate, EndInfo, length_value
-from tracer.header import TrailHeader, to_wire
-from tracer.schema import BEST, CODECS, DECISION_NAMES, END, NODES
+from tracer.base import (
+    BEST,
+    CODECS,
+    DECISION_NAMES,
+    END,
+    NODES,
+    BestUpdate,
+    EndInfo,
+    TrailHeader,
+    length_value,
+    to_wire,
+)
 
 _QUEUE_DEPTH = 4
 

@@ -1,6 +1,6 @@
 """Driving the compiled search: settings, limits, record buffers, and the hand-off to a trail.
 
-The kernel (`tracer.engine`) owns no Python objects; this module allocates its state, calls
+The kernel (`tracer.search.engine`) owns no Python objects; this module allocates its state, calls
 it in short slices, turns each full buffer into a block of narrow columns for the writer,
 and between slices checks the clock, the node limit and the stop flag (Ctrl-C / SIGTERM).
 """
@@ -16,13 +16,7 @@ from typing import Any, Protocol
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer import engine
-from tracer.errors import PrunetrailError
-from tracer.faults import FAULTS, fault_code
-from tracer.frames import BestUpdate
-from tracer.header import NO_BOUND, TREE_LINKS, SolverInfo, TrailHeader
-from tracer.instance import Instance
-from tracer.schema import (
+from tracer.base import (
     CITY,
     COMPLETE,
     DECISION,
@@ -36,13 +30,22 @@ from tracer.schema import (
     LINK_IN_CITY,
     LINK_OUT,
     LINK_OUT_CITY,
+    NO_BOUND,
     PARTIAL,
     TREE,
+    TREE_LINKS,
+    BestUpdate,
     Column,
+    Instance,
+    PrunetrailError,
+    SolverInfo,
+    TrailHeader,
     absent_value,
     column_layout,
 )
-from tracer.tours import start_tour, tour_length
+from tracer.search import engine
+from tracer.search.faults import FAULTS, fault_code
+from tracer.search.tours import start_tour, tour_length
 
 #: Default small-remainder cutoff: the lowest geometric-mean time over seven TSPLIB instances
 #: in the sweep of tests/bench/bench_cutoff.py (figures in tests/bench/README.md).
@@ -72,7 +75,7 @@ class SearchSettings:
         cutoff: nodes with k <= cutoff unvisited cities get no bound (decision `skip`).
         order: child order, "nearest" (nearest first) or "index".
         bound: "tree+links" or "none" (full enumeration).
-        fault: a planted fault's name from `tracer.faults.FAULTS`, or None.
+        fault: a planted fault's name from `tracer.search.faults.FAULTS`, or None.
         max_nodes: stop (status `limit`) after this many nodes.
         time_limit: stop (status `limit`) after this many seconds.
         record: "all", "decisions" (tree shape and decisions only) or "none".
@@ -99,8 +102,8 @@ class StartTour:
 
 
 def make_start(instance: Instance, start: str, improve: str) -> StartTour | None:
-    """The start incumbent: a construction (`tracer.tours.CONSTRUCTIONS`) and an improvement
-    (`tracer.improve.IMPROVEMENTS`), or None for `start == "none"` (infinite incumbent)."""
+    """The start incumbent: a construction (`tracer.search.tours.CONSTRUCTIONS`) and an improvement
+    (`tracer.search.improve.IMPROVEMENTS`), or None for `start == "none"` (infinite incumbent)."""
     if start == NO_START:
         return None
     tour = start_tour(instance.matrix, start, improve)

@@ -4,7 +4,7 @@ The search prunes against the incumbent, so a good start tour shrinks the tree i
 Each construction takes one Python step per city (greedy edge: per accepted edge) and does
 the work of that step as numpy operations over all cities, which keeps a 1,000-city start
 tour well under a second. Constructions run on any square matrix; the improvements in
-`tracer.improve` need it symmetric. Tours are int64 arrays of 0-based cities, each city
+`tracer.search.improve` need it symmetric. Tours are int64 arrays of 0-based cities, each city
 once, the closing edge implied.
 """
 
@@ -14,9 +14,8 @@ from collections.abc import Callable
 
 import numpy as np
 
-from tracer.errors import PrunetrailError
-from tracer.improve import IMPROVEMENTS
-from tracer.metrics import IntArray, Matrix
+from tracer.base import IntArray, Matrix, PrunetrailError
+from tracer.search.improve import IMPROVEMENTS
 
 #: How many of the sorted candidate edges greedy edge examines one by one before it drops,
 #: in one array operation, every edge that can no longer join the tour.
@@ -247,7 +246,7 @@ def start_tour(matrix: Matrix, start: str = "nn", improve: str = "2opt+oropt") -
     Args:
         matrix: the distance matrix.
         start: a key of `CONSTRUCTIONS`.
-        improve: a key of `tracer.improve.IMPROVEMENTS`.
+        improve: a key of `tracer.search.improve.IMPROVEMENTS`.
 
     Returns:
         An int64 permutation of the cities beginning with city 0.

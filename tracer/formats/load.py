@@ -7,9 +7,9 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer.cities_csv import read_cities_csv
-from tracer.instance import Instance
-from tracer.tsplib import read_instance, read_tour
+from tracer.base import Instance
+from tracer.formats.cities_csv import read_cities_csv
+from tracer.formats.tsplib import read_instance, read_tour
 
 
 def load_instance(path: str | Path) -> Instance:

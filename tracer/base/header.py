@@ -12,9 +12,9 @@ from typing import Any
 
 import numpy as np
 
-from tracer.instance import Instance
-from tracer.metrics import COORD_METRICS, EXPLICIT, FloatArray, Matrix, distance_matrix
-from tracer.schema import (
+from tracer.base.instance import Instance
+from tracer.base.metrics import COORD_METRICS, EXPLICIT, FloatArray, Matrix, distance_matrix
+from tracer.base.schema import (
     FORMAT_NAME,
     FORMAT_VERSION,
     HEADER,

@@ -24,26 +24,24 @@ from typing import Any, BinaryIO, NoReturn, TypeGuard
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer.errors import InputError
-from tracer.frames import BestUpdate, EndInfo
-from tracer.header import SolverInfo, TrailHeader
-from tracer.instance import Instance, explicit_instance
-from tracer.metrics import COORD_METRICS, EXPLICIT, MAX_COORDINATE, FloatArray, Matrix
-from tracer.schema import (
+from tracer.base import (
     BEST,
     BOUND,
     CITY,
+    COORD_METRICS,
     DECISION,
     DECISION_BY_NAME,
     DECISION_NAMES,
     DEPTH,
     END,
+    EXPLICIT,
     FULL_COLUMNS,
     HEADER,
     LINK_IN,
     LINK_IN_CITY,
     LINK_OUT,
     LINK_OUT_CITY,
+    MAX_COORDINATE,
     MAX_FRAME_BYTES,
     MAX_TRAIL_CITIES,
     MAX_TRAIL_NODES,
@@ -52,11 +50,20 @@ from tracer.schema import (
     STATUSES,
     TREE,
     VISIT,
+    BestUpdate,
+    EndInfo,
+    FloatArray,
+    InputError,
+    Instance,
+    Matrix,
+    SolverInfo,
+    Trail,
+    TrailHeader,
     absent_value,
     column_layout,
+    explicit_instance,
 )
-from tracer.trail_reader import Trail
-from tracer.trail_writer import TrailWriter
+from tracer.trails.writer import TrailWriter
 
 #: `SolverInfo.engine` of an imported trail.
 ENGINE = "jsonl"

@@ -8,8 +8,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from tracer.jsonl_import import read_jsonl
-from tracer.trail_reader import Trail, read_trail
+from tracer.base import Trail
+from tracer.trails.jsonl import read_jsonl
+from tracer.trails.reader import read_trail
 
 #: File suffix read as JSON Lines (any other file is read as a trail).
 JSONL_SUFFIX = ".jsonl"

@@ -15,15 +15,15 @@ from pathlib import Path
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer.errors import InputError
-from tracer.instance import Instance
-from tracer.metrics import (
+from tracer.base import (
     COORD_METRICS,
     EUCLIDEAN,
     EXPLICIT,
     MAX_COORDINATE,
     MAX_EDGE,
     FloatArray,
+    InputError,
+    Instance,
     Matrix,
 )
 

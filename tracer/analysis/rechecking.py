@@ -10,7 +10,7 @@ first node (on the search's path when the chunk begins), so there are fewer than
 them, and their paths are walked once. Nodes that need a bound are then reduced to
 their distinct unvisited sets (`np.unique` on the masks; the tree and the link back to the
 start city depend on nothing else), grouped by set size, and a batch Prim runs once per
-distinct set (`tracer._recheck_sets`). Every comparison is then one vectorised pass.
+distinct set (`tracer.analysis._recheck_sets`). Every comparison is then one vectorised pass.
 
 Lengths are compared exactly for integer metrics; for floating-point ones two lengths agree
 when they differ by at most `REL_TOL` times the larger of the recomputed value and the
@@ -31,7 +31,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer._recheck_sets import (
+from tracer.analysis._recheck_sets import (
     all_cities,
     attaining,
     city_bits,
@@ -43,8 +43,8 @@ from tracer._recheck_sets import (
     tree_weights,
     word_count,
 )
-from tracer.header import NO_BOUND, TREE_LINKS
-from tracer.schema import (
+from tracer.analysis.tree_index import ORPHAN, ROOT, TreeIndex
+from tracer.base import (
     BOUND,
     CITY,
     DECISION,
@@ -55,13 +55,14 @@ from tracer.schema import (
     LINK_IN_CITY,
     LINK_OUT,
     LINK_OUT_CITY,
+    NO_BOUND,
     PARTIAL,
     TREE,
+    TREE_LINKS,
     Decision,
+    Trail,
     is_absent,
 )
-from tracer.trail_reader import Trail
-from tracer.tree_index import ORPHAN, ROOT, TreeIndex
 
 #: The kinds of check, in the order a node's findings are listed.
 KINDS: tuple[str, ...] = (

@@ -6,7 +6,7 @@ looks like in a trail and tests prove the independent re-check finds it.
 
 from __future__ import annotations
 
-from tracer import engine
+from tracer.search import engine
 
 #: Fault name -> (engine code, one line of help).
 FAULTS: dict[str, tuple[int, str]] = {

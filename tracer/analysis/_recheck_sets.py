@@ -8,7 +8,7 @@ whole batch of equal-sized sets at a time: every step of Prim is one argmin and 
 minimum over a (batch, k) array, so the Python loop runs k times per batch, not per node.
 Batches are cut into sub-batches so memory stays bounded whatever their size.
 
-Nothing here knows about trails or decisions; `tracer.recheck` applies the search's rule.
+Nothing here knows about trails or decisions; `rechecking` applies the search's rule.
 """
 
 from __future__ import annotations

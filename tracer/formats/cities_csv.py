@@ -13,10 +13,8 @@ from pathlib import Path
 
 import numpy as np
 
-from tracer.errors import InputError
-from tracer.instance import Instance
-from tracer.metrics import EUCLIDEAN, MAX_COORDINATE
-from tracer.tsplib import MAX_DIMENSION, MAX_FILE_BYTES
+from tracer.base import EUCLIDEAN, MAX_COORDINATE, InputError, Instance
+from tracer.formats.tsplib import MAX_DIMENSION, MAX_FILE_BYTES
 
 _LABEL_NAMES = ("label", "name")
 

@@ -14,8 +14,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from tracer.errors import PrunetrailError
-from tracer.metrics import IntArray, Matrix
+from tracer.base import IntArray, Matrix, PrunetrailError
 
 #: Relative tolerance for float distances: a move must gain this share of the longest edge.
 FLOAT_TOLERANCE = 1e-10

@@ -26,19 +26,20 @@ from typing import Any, SupportsFloat, SupportsIndex
 import numpy as np
 from numpy.typing import ArrayLike
 
-from tracer.header import TREE_LINKS
-from tracer.instance import Instance, explicit_instance
-from tracer.jsonl_import import check_header, import_jsonl
-from tracer.metrics import COORD_METRICS
-from tracer.schema import (
+from tracer.base import (
     COMPLETE,
+    COORD_METRICS,
     DECISION_BY_NAME,
     DECISION_NAMES,
     INTERRUPTED,
     STATUSES,
+    TREE_LINKS,
     Decision,
+    Instance,
+    Trail,
+    explicit_instance,
 )
-from tracer.trail_reader import Trail
+from tracer.trails.jsonl import check_header, import_jsonl
 
 #: A link as the solver gives it: (city, length).
 Link = tuple[SupportsIndex, SupportsFloat]

@@ -11,8 +11,8 @@ from functools import cached_property
 
 import numpy as np
 
-from tracer.errors import PrunetrailError
-from tracer.metrics import EXPLICIT, FloatArray, Matrix, distance_matrix, is_integer_metric
+from tracer.base.errors import PrunetrailError
+from tracer.base.metrics import EXPLICIT, FloatArray, Matrix, distance_matrix, is_integer_metric
 
 #: Largest instance whose full n×n matrix we are willing to build (8 bytes a cell).
 MATRIX_MAX_CITIES = 10_000

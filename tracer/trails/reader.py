@@ -14,7 +14,6 @@ and a notice saying where it stops.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, BinaryIO, TypeGuard
 
@@ -23,10 +22,7 @@ import numpy as np
 import zstandard
 from numpy.typing import NDArray
 
-from tracer.errors import InputError
-from tracer.frames import BestUpdate, EndInfo
-from tracer.header import HeaderError, TrailHeader, from_wire
-from tracer.schema import (
+from tracer.base import (
     BEST,
     BOUND,
     CITY_COLUMNS,
@@ -51,8 +47,15 @@ from tracer.schema import (
     STATUSES,
     TREE,
     VISIT,
+    BestUpdate,
     Column,
+    EndInfo,
+    HeaderError,
+    InputError,
+    Trail,
+    TrailHeader,
     absent_value,
+    from_wire,
 )
 
 _READ_SIZE = 1 << 20
@@ -65,37 +68,6 @@ class CorruptTrailError(InputError):
     def __init__(self, path: str, offset: int, message: str, partial: Trail | None) -> None:
         super().__init__(path, message, offset=offset)
         self.partial = partial
-
-
-@dataclass
-class Trail:
-    """A trail read into memory.
-
-    Attributes:
-        path: the file it came from.
-        header: instance, solver settings, column layout.
-        columns: one array per header column, all `count` long, in node-id order.
-        best: incumbent updates in the order they took effect.
-        end: the closing frame, or None for a live or crashed run.
-        notice: where and why reading stopped early, if it did.
-    """
-
-    path: str
-    header: TrailHeader
-    columns: dict[str, NDArray[Any]]
-    best: list[BestUpdate] = field(default_factory=list)
-    end: EndInfo | None = None
-    notice: str | None = None
-
-    @property
-    def count(self) -> int:
-        """How many node records the trail holds."""
-        return len(self.columns[DECISION])
-
-    @property
-    def n(self) -> int:
-        """The instance's city count."""
-        return self.header.instance.n
 
 
 def _unpacker(source: BinaryIO | None) -> msgpack.Unpacker:

@@ -17,8 +17,7 @@ import numpy as np
 from numba import njit
 from numpy.typing import NDArray
 
-from tracer.frames import BestUpdate
-from tracer.schema import CITY, DECISION, DECISION_NAMES, DEPTH, VISIT
+from tracer.base import CITY, DECISION, DECISION_NAMES, DEPTH, VISIT, BestUpdate
 
 #: Parent of the root.
 ROOT = -1
