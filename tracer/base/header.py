@@ -13,16 +13,26 @@ from typing import Any
 import numpy as np
 
 from tracer.base.instance import Instance
+from tracer.base.limits import (
+    MAX_COLUMNS,
+    MAX_COORDINATE,
+    MAX_EDGE,
+    MAX_HEADER_ITEMS,
+    MAX_TEXT,
+    MAX_TRAIL_CITIES,
+    MAX_WORD,
+)
 from tracer.base.metrics import COORD_METRICS, EXPLICIT, FloatArray, Matrix, distance_matrix
+from tracer.base.records import FieldError, is_int, is_number, text_value
 from tracer.base.schema import (
+    CITY_COLUMNS,
+    DEPTH,
     FORMAT_NAME,
     FORMAT_VERSION,
     HEADER,
     KNOWN_COLUMNS,
-    MAX_COLUMNS,
-    MAX_HEADER_ITEMS,
-    MAX_TRAIL_CITIES,
     REQUIRED_COLUMNS,
+    ROW_COLUMNS,
     Column,
     city_dtype,
 )
@@ -30,12 +40,41 @@ from tracer.base.schema import (
 #: Our bound's name in a header; any other name means only structural and decision checks.
 TREE_LINKS = "tree+links"
 NO_BOUND = "none"
+#: tree+links with a penalty per unvisited city (Lagrangian relaxation of the degrees).
+PENALTIES = "penalties"
 
 _LENGTH_DTYPES = ("<i4", "<i8", "<f8")
 
 
 class HeaderError(ValueError):
     """A header map that does not describe a trail (message says which field)."""
+
+
+@dataclass(frozen=True)
+class PenaltySettings:
+    """How the penalties bound raised its penalties at each node.
+
+    Attributes:
+        steps: subgradient steps at each bounded node (warm-started from the parent's pi).
+        root_steps: steps at the root, which starts from pi = 0.
+        step_rule: how a step's size is chosen (the engine's names, e.g. "gap").
+        quantum: every penalty is a whole multiple of this (a power of two, so sums of
+            whole-number lengths and penalties are exact in float64); `pi` holds multiples.
+    """
+
+    steps: int
+    root_steps: int
+    step_rule: str
+    quantum: float
+
+    def to_wire(self) -> dict[str, Any]:
+        """The settings as a MessagePack-ready map."""
+        return {
+            "steps": self.steps,
+            "root_steps": self.root_steps,
+            "step_rule": self.step_rule,
+            "quantum": self.quantum,
+        }
 
 
 @dataclass(frozen=True)
@@ -52,6 +91,7 @@ class SolverInfo:
         record: what was recorded ("all", "decisions", "none").
         record_under: path prefix whose subtree (and path) alone was recorded, if any.
         visit_order: True when nodes were visited in another order than pre-order.
+        penalties: the penalties bound's settings (None for any other bound).
     """
 
     bound: str = TREE_LINKS
@@ -63,6 +103,7 @@ class SolverInfo:
     record: str = "all"
     record_under: tuple[int, ...] | None = None
     visit_order: bool = False
+    penalties: PenaltySettings | None = None
 
 
 @dataclass(frozen=True)
@@ -117,6 +158,7 @@ def to_wire(header: TrailHeader) -> dict[str, Any]:
             "record": s.record,
             "record_under": None if s.record_under is None else list(s.record_under),
             "visit_order": s.visit_order,
+            **({} if s.penalties is None else {"penalties": s.penalties.to_wire()}),
         },
         "columns": [c.to_wire() for c in header.columns],
         **header.extra,
@@ -128,9 +170,12 @@ def _need(cond: bool, message: str) -> None:
         raise HeaderError(message)
 
 
-def _text(value: Any, what: str, limit: int = 200) -> str:
-    _need(isinstance(value, str), f"{what} must be text")
-    return str(value)[:limit]
+def _text(value: Any, what: str, limit: int = MAX_TEXT) -> str:
+    """Text of at most `limit` characters: longer text is refused (`tracer.base.limits`)."""
+    try:
+        return text_value(value, limit)
+    except FieldError as exc:
+        raise HeaderError(f"{what} {exc}") from None
 
 
 def _flag(value: Any, what: str) -> bool:
@@ -142,8 +187,20 @@ def _optional_text(value: Any, what: str) -> str | None:
     return None if value is None else _text(value, what)
 
 
-def _array(value: Any, what: str, dtype: str, count: int) -> np.ndarray:
-    """A numeric array from raw little-endian bytes or nested lists, exactly `count` long."""
+def _array(value: Any, what: str, dtype: str, count: int, limit: float) -> np.ndarray:
+    """A numeric array from raw little-endian bytes or nested lists, exactly `count` long.
+
+    Every value must be finite and at most `limit` in magnitude (`tracer.base.limits`).
+    """
+    arr = _numbers(value, what, dtype, count)
+    _need(bool(np.isfinite(arr).all()), f"{what} must hold finite numbers")
+    _need(
+        bool((np.abs(arr) <= limit).all()), f"{what} holds a number beyond ±{limit:g} (the limit)"
+    )
+    return arr
+
+
+def _numbers(value: Any, what: str, dtype: str, count: int) -> np.ndarray:
     if isinstance(value, bytes | bytearray):
         itemsize = np.dtype(dtype).itemsize
         _need(
@@ -160,35 +217,31 @@ def _array(value: Any, what: str, dtype: str, count: int) -> np.ndarray:
             flat.append(row)
         _need(len(flat) <= count, f"{what} holds more than {count} numbers")
     _need(len(flat) == count, f"{what} holds {len(flat)} numbers, expected {count}")
-    _need(
-        all(isinstance(v, int | float) and not isinstance(v, bool) for v in flat),
-        f"{what} must hold only numbers",
-    )
-    if dtype != "<f8" and all(isinstance(v, int) for v in flat):
-        _need(all(-(2**62) < v < 2**62 for v in flat), f"{what} holds a number out of range")
+    _need(all(is_number(v) for v in flat), f"{what} must hold only finite numbers")
+    if dtype != "<f8" and all(is_int(v) for v in flat):
+        _need(all(abs(v) <= 2**62 for v in flat), f"{what} holds a number beyond ±2**62")
         return np.array(flat, dtype="<i8")
-    arr = np.array(flat, dtype=np.float64)
-    _need(bool(np.isfinite(arr).all()), f"{what} must hold finite numbers")
-    return arr
+    return np.array(flat, dtype=np.float64)
 
 
 def _instance(raw: Any) -> Instance:
     _need(isinstance(raw, dict), "instance must be a map")
     name = _text(raw.get("name", "trail"), "instance.name")
     n = raw.get("n")
-    _need(isinstance(n, int) and not isinstance(n, bool), "instance.n must be a whole number")
+    _need(is_int(n), "instance.n must be a whole number")
     _need(1 <= n <= MAX_TRAIL_CITIES, f"instance.n must be 1..{MAX_TRAIL_CITIES}, found {n}")
     _need(n * n <= MAX_HEADER_ITEMS, "instance too large")
     metric = _text(raw.get("metric", EXPLICIT), "instance.metric")
     coords: FloatArray | None = None
     if raw.get("coords") is not None:
-        coords = _array(raw["coords"], "instance.coords", "<f8", 2 * n).astype(np.float64)
+        coords = _array(raw["coords"], "instance.coords", "<f8", 2 * n, MAX_COORDINATE)
+        coords = coords.astype(np.float64)
         coords = coords.reshape(n, 2)
     matrix: Matrix
     if raw.get("matrix") is not None:
         dtype = _text(raw.get("matrix_dtype", "<i8"), "instance.matrix_dtype")
         _need(dtype in _LENGTH_DTYPES, f"instance.matrix_dtype must be one of {_LENGTH_DTYPES}")
-        matrix = _array(raw["matrix"], "instance.matrix", dtype, n * n).reshape(n, n)
+        matrix = _array(raw["matrix"], "instance.matrix", dtype, n * n, MAX_EDGE).reshape(n, n)
         matrix = matrix.astype(np.float64 if matrix.dtype.kind == "f" else np.int64)
         np.fill_diagonal(matrix, 0)
     else:
@@ -210,10 +263,19 @@ def _columns(raw: Any, n: int) -> tuple[Column, ...]:
     )
     out: list[Column] = []
     for item in raw:
-        _need(isinstance(item, list) and len(item) == 2, "each column must be [name, dtype]")
-        name = _text(item[0], "column name", 40)
-        dtype_str = _text(item[1], f"column {name}'s dtype", 8)
+        _need(
+            isinstance(item, list) and len(item) in (2, 3),
+            "each column must be [name, dtype] (or [name, dtype, n] for a row column)",
+        )
+        name = _text(item[0], "column name", MAX_WORD)
+        dtype_str = _text(item[1], f"column {name}'s dtype", MAX_WORD)
         _need(name in KNOWN_COLUMNS, f"unknown column {name!r}")
+        _need(
+            (len(item) == 3) == (name in ROW_COLUMNS),
+            f"column {name} must be given as "
+            + ("[name, dtype, n]" if name in ROW_COLUMNS else "[name, dtype]"),
+        )
+        _need(len(item) == 2 or item[2] == n, f"row column {name} must hold n = {n} values")
         _need(all(c.name != name for c in out), f"column {name!r} given twice")
         try:
             dtype = np.dtype(dtype_str)
@@ -223,17 +285,46 @@ def _columns(raw: Any, n: int) -> tuple[Column, ...]:
             dtype.kind in "iuf" and dtype.itemsize <= 8 and dtype.byteorder in "<|=",
             f"column {name}'s dtype {dtype_str!r} must be a little-endian number",
         )
-        out.append(Column(name, dtype.newbyteorder("<")))
+        dtype = dtype.newbyteorder("<")
+        out.append(Column(name, np.dtype((dtype, (n,))) if len(item) == 3 else dtype))
     for name in REQUIRED_COLUMNS:
         _need(any(c.name == name for c in out), f"columns must include {name!r}")
     cities = city_dtype(n)
     for c in out:
-        if c.name in ("city", "depth", "link_in_city", "link_out_city"):
+        if c.name in (*CITY_COLUMNS, DEPTH):
             _need(
                 c.dtype.kind == "u" and c.dtype.itemsize >= cities.itemsize,
                 f"column {c.name} must be unsigned, at least {cities.str}",
             )
     return tuple(out)
+
+
+def _number(value: Any, what: str) -> float:
+    _need(
+        is_number(value) and 0 < value < 1e300,
+        f"{what} must be a positive number",
+    )
+    return float(value)
+
+
+def _count(value: Any, what: str, limit: int) -> int:
+    _need(
+        is_int(value) and 0 <= value <= limit,
+        f"{what} must be a whole number 0..{limit}",
+    )
+    return int(value)
+
+
+def _penalties(raw: Any) -> PenaltySettings | None:
+    if raw is None:
+        return None
+    _need(isinstance(raw, dict), "solver.penalties must be a map")
+    return PenaltySettings(
+        steps=_count(raw.get("steps"), "solver.penalties.steps", 1 << 20),
+        root_steps=_count(raw.get("root_steps"), "solver.penalties.root_steps", 1 << 24),
+        step_rule=_text(raw.get("step_rule", ""), "solver.penalties.step_rule", MAX_WORD),
+        quantum=_number(raw.get("quantum"), "solver.penalties.quantum"),
+    )
 
 
 def _solver(raw: Any, n: int) -> SolverInfo:
@@ -242,7 +333,7 @@ def _solver(raw: Any, n: int) -> SolverInfo:
     _need(isinstance(raw, dict), "solver must be a map")
     cutoff = raw.get("cutoff", 0)
     _need(
-        isinstance(cutoff, int) and not isinstance(cutoff, bool) and cutoff >= 0,
+        is_int(cutoff) and cutoff >= 0,
         "solver.cutoff must be a whole number >= 0",
     )
     under = raw.get("record_under")
@@ -251,20 +342,21 @@ def _solver(raw: Any, n: int) -> SolverInfo:
         _need(
             isinstance(under, list)
             and 1 <= len(under) <= n
-            and all(isinstance(c, int) and 0 <= c < n for c in under),
+            and all(is_int(c) and 0 <= c < n for c in under),
             "solver.record_under must be a list of cities",
         )
         prefix = tuple(int(c) for c in under)
     return SolverInfo(
-        bound=_text(raw.get("bound", TREE_LINKS), "solver.bound", 60),
+        bound=_text(raw.get("bound", TREE_LINKS), "solver.bound", MAX_WORD),
         cutoff=min(int(cutoff), n),
         engine=_text(raw.get("engine", ""), "solver.engine"),
         order=_optional_text(raw.get("order"), "solver.order"),
         start=_optional_text(raw.get("start"), "solver.start"),
         fault=_optional_text(raw.get("fault"), "solver.fault"),
-        record=_text(raw.get("record", "all"), "solver.record", 20),
+        record=_text(raw.get("record", "all"), "solver.record", MAX_WORD),
         record_under=prefix,
         visit_order=_flag(raw.get("visit_order", False), "solver.visit_order"),
+        penalties=_penalties(raw.get("penalties")),
     )
 
 

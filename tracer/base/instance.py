@@ -12,10 +12,8 @@ from functools import cached_property
 import numpy as np
 
 from tracer.base.errors import PrunetrailError
+from tracer.base.limits import MATRIX_MAX_CITIES
 from tracer.base.metrics import EXPLICIT, FloatArray, Matrix, distance_matrix, is_integer_metric
-
-#: Largest instance whose full n×n matrix we are willing to build (8 bytes a cell).
-MATRIX_MAX_CITIES = 10_000
 
 
 @dataclass(eq=False)

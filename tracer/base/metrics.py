@@ -19,12 +19,6 @@ IntArray = NDArray[np.int64]
 #: A distance matrix: int64 for integer metrics, float64 otherwise.
 Matrix = NDArray[Any]
 
-#: Largest magnitude accepted for a coordinate or an edge weight read from a file: with up
-#: to a few thousand cities every tour length then stays below 2**53, where float64 sums of
-#: whole numbers are exact (the search adds lengths in float64).
-MAX_COORDINATE = 1e12
-MAX_EDGE = 1e12
-
 #: Metric used for an instance given as an explicit matrix.
 EXPLICIT = "EXPLICIT"
 #: Our float metric for CSV city lists.

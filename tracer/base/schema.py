@@ -15,6 +15,31 @@ from enum import IntEnum
 import numpy as np
 from numpy.typing import NDArray
 
+# Limits every reader enforces, so a hostile file cannot exhaust memory: one table, with the
+# reason beside each value, in `tracer.base.limits` (re-exported here for old imports).
+from tracer.base.limits import (  # noqa: F401
+    MATRIX_MAX_CITIES,
+    MAX_BLOCK_NODES,
+    MAX_COLUMNS,
+    MAX_COORDINATE,
+    MAX_EDGE,
+    MAX_EXPLICIT_CITIES,
+    MAX_FILE_BYTES,
+    MAX_FILE_CITIES,
+    MAX_FRAME_BYTES,
+    MAX_HEADER_ITEMS,
+    MAX_LENGTH,
+    MAX_LIST_ITEMS,
+    MAX_MAP_ITEMS,
+    MAX_NODE_ID,
+    MAX_STRING_BYTES,
+    MAX_TEXT,
+    MAX_TRAIL_CITIES,
+    MAX_TRAIL_NODES,
+    MAX_WORD,
+    MIN_NODE_ID,
+)
+
 FORMAT_NAME = "prunetrail"
 FORMAT_VERSION = 1
 
@@ -60,9 +85,12 @@ LINK_OUT_CITY = "link_out_city"  # (at a complete path: the closing edge, to cit
 DECISION = "decision"
 BOUND = "bound"  # optional: a bound recorded by a foreign solver (ours derives it)
 VISIT = "visit"  # optional: visit order, when it differs from pre-order (imported trails)
+# Columns of the penalties bound (there tree, link_in and link_out hold penalised lengths).
+PENALTY = "penalty"  # 2 * sum of the unvisited cities' penalties, subtracted from the sum
+PI = "pi"  # every city's penalty in quanta of the header's penalty_quantum (a row of n)
 
 REQUIRED_COLUMNS = (CITY, DEPTH, DECISION)
-LENGTH_COLUMNS = (PARTIAL, TREE, LINK_IN, LINK_OUT, BOUND)
+LENGTH_COLUMNS = (PARTIAL, TREE, LINK_IN, LINK_OUT, BOUND, PENALTY)
 CITY_COLUMNS = (CITY, LINK_IN_CITY, LINK_OUT_CITY)
 #: The bound's components, summed to derive it.
 BOUND_PARTS = (PARTIAL, TREE, LINK_IN, LINK_OUT)
@@ -78,17 +106,16 @@ FULL_COLUMNS = (
     LINK_OUT_CITY,
     DECISION,
 )
+#: Columns of a full recording under the penalties bound, in frame order.
+PENALTY_COLUMNS = (*FULL_COLUMNS[:-1], PENALTY, PI, DECISION)
+#: Every column the engine can fill (its record buffer holds one array for each, in order).
+ENGINE_COLUMNS = PENALTY_COLUMNS
+#: Columns holding a row of n values per node (one per city) instead of one value.
+ROW_COLUMNS = (PI,)
 #: Columns of a `--record decisions` trail: the tree's shape and what was decided.
 DECISION_COLUMNS = (CITY, DEPTH, DECISION)
-KNOWN_COLUMNS = frozenset((*FULL_COLUMNS, BOUND, VISIT))
+KNOWN_COLUMNS = frozenset((*PENALTY_COLUMNS, BOUND, VISIT))
 
-# Limits every reader enforces, so a hostile file cannot exhaust memory.
-MAX_FRAME_BYTES = 64 * 1024 * 1024
-MAX_BLOCK_NODES = 1 << 20
-MAX_TRAIL_NODES = 1 << 32
-MAX_TRAIL_CITIES = 4096
-MAX_COLUMNS = 16
-MAX_HEADER_ITEMS = 1 << 24  # list items in a header (coordinates and matrix given as lists)
 
 #: Block compression: zstandard (our writer) or none (hand-written writers).
 CODECS = ("zstd", "none")
@@ -118,7 +145,8 @@ def length_dtype(integral: bool, longest: float) -> np.dtype[np.number]:
 
 
 def absent_value(dtype: np.dtype[np.generic]) -> float | int:
-    """The value a column of `dtype` holds where nothing was recorded."""
+    """The value a column of `dtype` holds where nothing was recorded (a row column's cell)."""
+    dtype = dtype.base
     if dtype.kind == "f":
         return float("nan")
     info = np.iinfo(dtype.str)
@@ -139,12 +167,20 @@ class Column:
     name: str
     dtype: np.dtype[np.generic]
 
-    def to_wire(self) -> list[str]:
+    @property
+    def width(self) -> int:
+        """Values per node: 1, or n for a row column (its dtype is then a subarray)."""
+        return int(self.dtype.shape[0]) if self.dtype.shape else 1
+
+    def to_wire(self) -> list[str | int]:
+        """[name, dtype], or [name, dtype of one value, width] for a row column."""
+        if self.dtype.shape:
+            return [self.name, self.dtype.base.str, self.width]
         return [self.name, self.dtype.str]
 
 
 def column_layout(
-    names: tuple[str, ...], n: int, integral: bool, longest: float
+    names: tuple[str, ...], n: int, integral: bool, longest: float, penalised: bool = False
 ) -> tuple[Column, ...]:
     """The columns of a trail over an n-city instance, narrowest dtypes first.
 
@@ -153,9 +189,12 @@ def column_layout(
         n: the instance's city count.
         integral: whether distances are whole numbers.
         longest: an upper bound on any recorded length.
+        penalised: the penalties bound: its tree, links and penalty are fractional lengths,
+            and `pi` is a row of n int32 quanta.
     """
     cities = city_dtype(n)
     lengths = length_dtype(integral, longest)
+    fractional = length_dtype(not penalised and integral, longest)
     dtypes: dict[str, np.dtype[np.generic]] = {
         CITY: cities,
         DEPTH: cities,
@@ -163,5 +202,10 @@ def column_layout(
         LINK_OUT_CITY: cities,
         DECISION: np.dtype("<u1"),
         VISIT: np.dtype("<u8"),
+        TREE: fractional,
+        LINK_IN: fractional,
+        LINK_OUT: fractional,
+        PENALTY: fractional,
+        PI: np.dtype(("<i4", (n,))),
     }
     return tuple(Column(name, dtypes.get(name, lengths)) for name in names)

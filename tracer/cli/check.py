@@ -15,6 +15,8 @@ from tracer.cli._console import emit_json, err, out
 from tracer.trails import open_trail
 
 EXIT_WRONG = 1
+#: Every record read checks, but the trail is incomplete (cut short, or no end frame).
+EXIT_INCOMPLETE = 4
 
 _EPILOG = f"""\
 kinds of wrong record: {", ".join(KINDS)}.
@@ -25,7 +27,9 @@ examples:
   prunetrail check run.trail --first 5 --range 1000:2000
   prunetrail check trace.jsonl --json
 
-exit status: 0 every record checks, 1 some record is wrong, 2 unreadable input."""
+exit status: 0 every record checks, 1 some record is wrong, 2 unreadable input,
+4 every record read checks but the trail is incomplete (cut short, or no end frame: a
+live or crashed run); --json says so in its "complete" key."""
 
 
 def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
@@ -64,6 +68,7 @@ def run(args: argparse.Namespace) -> int:
     if trail.notice and not args.json:
         err.print(Text(f"note: {trail.notice}", style="yellow"))
     index = TreeIndex(trail.columns, trail.best)
+    complete = trail.end is not None and trail.notice is None
     start, stop = args.id_range or (0, None)
     progress = Progress(
         TextColumn("checking"),
@@ -82,11 +87,18 @@ def run(args: argparse.Namespace) -> int:
 
         report = recheck(trail, index, start=start, stop=stop, first=args.first, on_progress=show)
     if args.json:
-        result: dict[str, Any] = {"trail": args.trail, **report.to_json(), "notice": trail.notice}
+        result: dict[str, Any] = {
+            "trail": args.trail,
+            **report.to_json(),
+            "complete": complete,
+            "notice": trail.notice,
+        }
         emit_json(result)
     else:
         _print_report(args.trail, report)
-    return 0 if report.ok else EXIT_WRONG
+    if not report.ok:
+        return EXIT_WRONG
+    return 0 if complete else EXIT_INCOMPLETE
 
 
 def _value(value: Any) -> Text:

@@ -1,4 +1,5 @@
-"""`prunetrail tour` and `prunetrail info`: start tours and a quick look at an instance."""
+"""`prunetrail tour` and `prunetrail info`: start tours, and a quick look at an instance or a
+trail (`info` sniffs which one it was given, so a trail is never misread as an instance)."""
 
 from __future__ import annotations
 
@@ -11,10 +12,20 @@ import numpy as np
 from rich.table import Table
 from rich.text import Text
 
-from tracer.base import MATRIX_MAX_CITIES, Instance, PrunetrailError
+from tracer.base import (
+    DECISION,
+    DECISION_NAMES,
+    MATRIX_MAX_CITIES,
+    FileKind,
+    Instance,
+    PrunetrailError,
+    Trail,
+    sniff,
+)
 from tracer.cli._console import emit_json, out
 from tracer.formats import format_tour, load_instance, load_tour
 from tracer.search import CONSTRUCTIONS, IMPROVEMENTS, start_tour, tour_length
+from tracer.trails import open_trail
 
 
 def add_start_options(parser: argparse.ArgumentParser, *, allow_none: bool) -> None:
@@ -59,18 +70,23 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
 
     info = sub.add_parser(
         "info",
-        help="describe an instance (and a tour's length)",
+        help="describe an instance (and a tour's length), or a trail",
         description="Show an instance's size, metric, symmetry, shortest and longest edge, "
-        "and a nearest-neighbour tour's length; with --tour, that tour's length too.",
+        "and a nearest-neighbour tour's length; with --tour, that tour's length too. Given "
+        "a trail (or a JSON Lines trace), show its instance, solver settings, node count, "
+        "decisions, status and incumbent instead.",
     )
     info.epilog = (
         "examples:\n"
         "  prunetrail info scenarios/lantern_ferry.tsp\n"
-        "  prunetrail info run.tsp --tour best.tour --json\n\n"
+        "  prunetrail info run.tsp --tour best.tour --json\n"
+        "  prunetrail info run.trail\n\n"
         "exit status: 0 done, 2 bad input."
     )
     info.formatter_class = argparse.RawDescriptionHelpFormatter
-    info.add_argument("instance", help="TSPLIB .tsp/.atsp file or CSV city list")
+    info.add_argument(
+        "instance", help="TSPLIB .tsp/.atsp file or CSV city list; or a .trail / .jsonl trace"
+    )
     info.add_argument("--tour", metavar="FILE.tour", help="a TSPLIB tour file to measure")
     info.add_argument("--json", action="store_true", help="print one JSON object")
     info.set_defaults(run=run_info)
@@ -143,8 +159,84 @@ def describe(instance: Instance, tour_path: str | None) -> dict[str, Any]:
     return facts
 
 
+def describe_trail(trail: Trail) -> dict[str, Any]:
+    """The facts `info` shows for a trail, as a JSON-ready map."""
+    inst, solver = trail.header.instance, trail.header.solver
+    counts = np.bincount(trail.columns[DECISION], minlength=len(DECISION_NAMES))
+    last = trail.best[-1] if trail.best else None
+    end = trail.end
+    incumbent = end.length if end is not None and end.length is not None else None
+    if incumbent is None and last is not None:
+        incumbent = last.length
+    return {
+        "trail": trail.path,
+        "instance": {"name": inst.name, "n": inst.n, "metric": inst.metric},
+        "solver": {
+            "engine": solver.engine,
+            "bound": solver.bound,
+            "cutoff": solver.cutoff,
+            "order": solver.order,
+            "start": solver.start,
+            "fault": solver.fault,
+            "record": solver.record,
+            "record_under": None if solver.record_under is None else list(solver.record_under),
+            "visit_order": solver.visit_order,
+        },
+        "columns": [c.name for c in trail.header.columns],
+        "nodes": trail.count,
+        "decisions": {name: int(counts[i]) for i, name in enumerate(DECISION_NAMES)},
+        "status": None if end is None else end.status,
+        "complete": end is not None and trail.notice is None,
+        "seconds": None if end is None else end.seconds,
+        "incumbent": None if incumbent is None else _number(incumbent),
+        "incumbent_updates": len(trail.best),
+        "notice": trail.notice,
+    }
+
+
+def _print_trail_facts(facts: dict[str, Any]) -> None:
+    table = Table(show_header=False, box=None)
+    inst, solver = facts["instance"], facts["solver"]
+    table.add_row("trail", Text(facts["trail"]))
+    table.add_row("instance", Text(f"{inst['name']} ({inst['n']} cities, {inst['metric']})"))
+    settings = ", ".join(
+        f"{key} {value}"
+        for key, value in solver.items()
+        if value not in (None, "", False) and key != "visit_order"
+    )
+    table.add_row(
+        "solver", Text(settings + (", visit order kept" if solver["visit_order"] else ""))
+    )
+    table.add_row("nodes", Text(f"{facts['nodes']:,}"))
+    table.add_row(
+        "decisions",
+        Text(", ".join(f"{name} {count:,}" for name, count in facts["decisions"].items())),
+    )
+    status = facts["status"] or "no end frame (a live or crashed run)"
+    table.add_row("status", Text(status))
+    incumbent = facts["incumbent"]
+    table.add_row(
+        "incumbent",
+        Text(
+            "none" if incumbent is None else f"{incumbent} (updates: {facts['incumbent_updates']})"
+        ),
+    )
+    if facts["notice"]:
+        table.add_row("note", Text(facts["notice"]))
+    out.print(table)
+
+
 def run_info(args: argparse.Namespace) -> int:
-    """Print what an instance is."""
+    """Print what an instance (or a trail) is."""
+    if sniff(args.instance) in (FileKind.TRAIL, FileKind.JSON_LINES):
+        if args.tour:
+            raise PrunetrailError("--tour measures a tour against an instance, not a trail")
+        trail_facts = describe_trail(open_trail(args.instance))
+        if args.json:
+            emit_json(trail_facts)
+        else:
+            _print_trail_facts(trail_facts)
+        return 0
     facts = describe(load_instance(args.instance), args.tour)
     if args.json:
         emit_json(facts)

@@ -13,8 +13,15 @@ from pathlib import Path
 
 import numpy as np
 
-from tracer.base import EUCLIDEAN, MAX_COORDINATE, InputError, Instance
-from tracer.formats.tsplib import MAX_DIMENSION, MAX_FILE_BYTES
+from tracer.base import (
+    EUCLIDEAN,
+    MAX_COORDINATE,
+    MAX_FILE_BYTES,
+    MAX_FILE_CITIES,
+    MAX_TEXT,
+    InputError,
+    Instance,
+)
 
 _LABEL_NAMES = ("label", "name")
 
@@ -68,8 +75,8 @@ def parse_cities_csv(text: str, path: str = "<text>") -> tuple[Instance, list[st
         raise InputError(path, "no cities: only a header line")
     xi, yi, li = columns
     width = max(xi, yi) + 1
-    if len(rows) > MAX_DIMENSION:
-        raise InputError(path, f"more than {MAX_DIMENSION} cities")
+    if len(rows) > MAX_FILE_CITIES:
+        raise InputError(path, f"more than {MAX_FILE_CITIES} cities")
     coords = np.empty((len(rows), 2), dtype=np.float64)
     labels: list[str] = []
     for k, (line, row) in enumerate(rows):
@@ -79,8 +86,15 @@ def parse_cities_csv(text: str, path: str = "<text>") -> tuple[Instance, list[st
             )
         coords[k, 0] = _float(path, line, row[xi].strip(), "x")
         coords[k, 1] = _float(path, line, row[yi].strip(), "y")
-        labels.append(row[li].strip() if 0 <= li < len(row) else "")
-    name = Path(path).stem
+        label = row[li].strip() if 0 <= li < len(row) else ""
+        if len(label) > MAX_TEXT:
+            raise InputError(
+                path,
+                f"label is {len(label)} characters, more than the {MAX_TEXT} accepted",
+                line=line,
+            )
+        labels.append(label)
+    name = Path(path).stem[:MAX_TEXT]  # a name we make ourselves: cut, never refused
     return Instance(name=name, metric=EUCLIDEAN, coords=coords, source=path), labels
 
 

@@ -21,17 +21,15 @@ from tracer.base import (
     EXPLICIT,
     MAX_COORDINATE,
     MAX_EDGE,
+    MAX_EXPLICIT_CITIES,
+    MAX_FILE_BYTES,
+    MAX_FILE_CITIES,
+    MAX_TEXT,
     FloatArray,
     InputError,
     Instance,
     Matrix,
 )
-
-#: Largest file we read; the largest DIMENSION we accept for a coordinate instance, and for
-#: an explicit matrix (whose numbers are all held as text while it is parsed).
-MAX_FILE_BYTES = 512 * 1024 * 1024
-MAX_DIMENSION = 1_000_000
-MAX_EXPLICIT_DIMENSION = 2_000
 
 SECTIONS = (
     "NODE_COORD_SECTION",
@@ -172,6 +170,19 @@ def _dimension(parsed: _Parsed, limit: int) -> int:
     if n > limit:
         raise parsed.error(f"DIMENSION {n} is more than the {limit} this reader accepts", line)
     return n
+
+
+def _name(parsed: _Parsed, path: str) -> str:
+    """NAME, refused beyond `MAX_TEXT` characters; without one, the file's stem (cut to it)."""
+    name = parsed.value("NAME")
+    if not name:
+        return Path(path).stem[:MAX_TEXT]
+    if len(name) > MAX_TEXT:
+        raise parsed.error(
+            f"NAME is {len(name)} characters, more than the {MAX_TEXT} accepted",
+            parsed.line_of("NAME"),
+        )
+    return name
 
 
 def _number(
@@ -323,8 +334,8 @@ def parse_instance(text: str, path: str = "<text>") -> Instance:
     if weight_type is None:
         raise parsed.error("missing EDGE_WEIGHT_TYPE")
     explicit = weight_type == EXPLICIT
-    n = _dimension(parsed, MAX_EXPLICIT_DIMENSION if explicit else MAX_DIMENSION)
-    name = parsed.value("NAME") or Path(path).stem
+    n = _dimension(parsed, MAX_EXPLICIT_CITIES if explicit else MAX_FILE_CITIES)
+    name = _name(parsed, path)
     comment = " ".join(parsed.comments)
     if parsed.value("NODE_COORD_TYPE") == "NO_COORDS" and not explicit:
         raise parsed.error(
@@ -374,7 +385,7 @@ def parse_tour(text: str, path: str = "<text>", n: int | None = None) -> NDArray
         raise parsed.error("missing TOUR_SECTION")
     section = parsed.sections["TOUR_SECTION"]
     if parsed.value("DIMENSION") is not None:
-        dim = _dimension(parsed, MAX_DIMENSION)
+        dim = _dimension(parsed, MAX_FILE_CITIES)
         if n is not None and dim != n:
             raise parsed.error(
                 f"tour DIMENSION {dim} does not match the instance's {n} cities",
@@ -397,8 +408,8 @@ def parse_tour(text: str, path: str = "<text>", n: int | None = None) -> NDArray
                 break
             nodes.append(node)
             lines.append(line)
-            if len(nodes) > MAX_DIMENSION:
-                raise parsed.error(f"TOUR_SECTION: more than {MAX_DIMENSION} nodes", line)
+            if len(nodes) > MAX_FILE_CITIES:
+                raise parsed.error(f"TOUR_SECTION: more than {MAX_FILE_CITIES} nodes", line)
         if closed:
             break
     if not nodes:

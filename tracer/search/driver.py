@@ -19,24 +19,21 @@ from numpy.typing import NDArray
 from tracer.base import (
     CITY,
     COMPLETE,
-    DECISION,
     DECISION_COLUMNS,
     DECISION_NAMES,
-    DEPTH,
+    ENGINE_COLUMNS,
     FULL_COLUMNS,
     INTERRUPTED,
     LIMIT,
-    LINK_IN,
-    LINK_IN_CITY,
-    LINK_OUT,
-    LINK_OUT_CITY,
     NO_BOUND,
-    PARTIAL,
+    PENALTIES,
+    PENALTY_COLUMNS,
     TREE,
     TREE_LINKS,
     BestUpdate,
     Column,
     Instance,
+    PenaltySettings,
     PrunetrailError,
     SolverInfo,
     TrailHeader,
@@ -44,17 +41,30 @@ from tracer.base import (
     column_layout,
 )
 from tracer.search import engine
-from tracer.search.faults import FAULTS, fault_code
+from tracer.search.faults import FAULTS, fault_bound, fault_code
 from tracer.search.tours import start_tour, tour_length
 
 #: Default small-remainder cutoff: the lowest geometric-mean time over seven TSPLIB instances
 #: in the sweep of tests/bench/bench_cutoff.py (figures in tests/bench/README.md).
 DEFAULT_CUTOFF = 1
 ORDERS = ("nearest", "index")
-BOUNDS = (TREE_LINKS, NO_BOUND)
+BOUNDS = (TREE_LINKS, PENALTIES, NO_BOUND)
+_BOUND_CODES = {
+    NO_BOUND: engine.BOUND_NONE,
+    TREE_LINKS: engine.BOUND_TREE_LINKS,
+    PENALTIES: engine.BOUND_PENALTIES,
+}
+#: Step rules of the penalties bound, by name.
+STEP_RULES = {"gap": engine.STEP_GAP}
+#: Penalties bound defaults: subgradient steps at each node and at the root (which starts
+#: from zero penalties), measured in tests/bench/bench_penalties.py.
+DEFAULT_PENALTY_STEPS = 30
+DEFAULT_ROOT_STEPS = 300
 RECORD_MODES = ("all", "decisions", "none")
 #: Above this many cities an unlimited exact search will not finish; a limit is required.
 EXACT_CITY_LIMIT = 40
+#: The same under the penalties bound (tests/bench/README.md, "The penalties bound").
+PENALTIES_CITY_LIMIT = 80
 #: The largest instance the engine accepts at all (with a node or time limit).
 SEARCH_CITY_LIMIT = 1000
 
@@ -80,6 +90,9 @@ class SearchSettings:
         time_limit: stop (status `limit`) after this many seconds.
         record: "all", "decisions" (tree shape and decisions only) or "none".
         record_under: record only the subtree under this path prefix, plus the path to it.
+        penalty_steps: penalties bound: subgradient steps at each node below the root.
+        root_steps: penalties bound: steps at the root.
+        step_rule: penalties bound: a name from `STEP_RULES`.
     """
 
     cutoff: int = DEFAULT_CUTOFF
@@ -90,6 +103,9 @@ class SearchSettings:
     time_limit: float | None = None
     record: str = "all"
     record_under: tuple[int, ...] | None = None
+    penalty_steps: int = DEFAULT_PENALTY_STEPS
+    root_steps: int = DEFAULT_ROOT_STEPS
+    step_rule: str = "gap"
 
 
 @dataclass(frozen=True)
@@ -158,10 +174,11 @@ def validate(instance: Instance, settings: SearchSettings) -> None:
         raise PrunetrailError(
             f"{instance.name} has {n} cities; the exact search takes at most {SEARCH_CITY_LIMIT}"
         )
-    if n > EXACT_CITY_LIMIT and settings.max_nodes is None and settings.time_limit is None:
+    limit = PENALTIES_CITY_LIMIT if settings.bound == PENALTIES else EXACT_CITY_LIMIT
+    if n > limit and settings.max_nodes is None and settings.time_limit is None:
         raise PrunetrailError(
-            f"{instance.name} has {n} cities: an exact search of more than {EXACT_CITY_LIMIT} "
-            "cities will not finish in any useful time (the tree grows as (n-1)!). "
+            f"{instance.name} has {n} cities: an exact search of more than {limit} cities "
+            f"with the {settings.bound} bound may not finish in any useful time. "
             "Give --max-nodes or --time-limit to record a bounded part of it."
         )
     if settings.cutoff < 0:
@@ -172,8 +189,14 @@ def validate(instance: Instance, settings: SearchSettings) -> None:
         raise PrunetrailError(f"bound must be one of {', '.join(BOUNDS)}")
     if settings.fault is not None and settings.fault not in FAULTS:
         raise PrunetrailError(f"unknown fault {settings.fault!r}; known: {', '.join(FAULTS)}")
-    if settings.fault is not None and settings.bound != TREE_LINKS:
-        raise PrunetrailError("a planted fault needs the tree+links bound")
+    if settings.fault is not None and settings.bound != fault_bound(settings.fault):
+        raise PrunetrailError(
+            f"the planted fault {settings.fault} needs the {fault_bound(settings.fault)} bound"
+        )
+    if settings.step_rule not in STEP_RULES:
+        raise PrunetrailError(f"step rule must be one of {', '.join(STEP_RULES)}")
+    if settings.penalty_steps < 0 or settings.root_steps < 0:
+        raise PrunetrailError("penalty steps must be 0 or more")
     if settings.record not in RECORD_MODES:
         raise PrunetrailError(f"record must be one of {', '.join(RECORD_MODES)}")
     prefix = settings.record_under
@@ -185,14 +208,49 @@ def validate(instance: Instance, settings: SearchSettings) -> None:
 
 
 def full_layout(instance: Instance, settings: SearchSettings) -> tuple[Column, ...]:
-    """Every column the engine fills, as narrow as the instance allows."""
-    return column_layout(FULL_COLUMNS, instance.n, instance.integral, _longest(instance, settings))
+    """Every column the engine fills for this bound, as narrow as the instance allows."""
+    penalised = settings.bound == PENALTIES
+    names = PENALTY_COLUMNS if penalised else FULL_COLUMNS
+    longest = _longest(instance, settings)
+    return column_layout(names, instance.n, instance.integral, longest, penalised)
 
 
 def trail_columns(instance: Instance, settings: SearchSettings) -> tuple[Column, ...]:
     """The columns a trail of this search carries (all, or the shape and decisions only)."""
-    names = FULL_COLUMNS if settings.record == "all" else DECISION_COLUMNS
-    return tuple(c for c in full_layout(instance, settings) if c.name in names)
+    layout = full_layout(instance, settings)
+    return (
+        layout
+        if settings.record == "all"
+        else tuple(c for c in layout if c.name in DECISION_COLUMNS)
+    )
+
+
+def penalty_quantum(instance: Instance) -> tuple[float, int]:
+    """The penalties' quantum (a power of two) and the largest |π| in quanta.
+
+    Penalties are capped at four times the longest edge, and the quantum is as fine as 2⁻¹⁰
+    while the cap fits 2³⁰ quanta (the `pi` column is int32) and every bound stays below
+    2⁵² quanta, so sums of whole-number lengths and penalties are exact in float64.
+    """
+    longest = float(np.max(instance.matrix, initial=0)) + 1.0
+    cap = 4.0 * longest
+    room = min(2.0**30 / cap, 2.0**50 / (cap * instance.n))
+    bits = min(10, math.floor(math.log2(room)))
+    quantum = 2.0**-bits
+    return quantum, min(int(cap / quantum), 2**30)
+
+
+def penalty_settings(instance: Instance, settings: SearchSettings) -> PenaltySettings | None:
+    """The header's record of how the penalties were raised (None for other bounds)."""
+    if settings.bound != PENALTIES:
+        return None
+    quantum, _ = penalty_quantum(instance)
+    return PenaltySettings(
+        steps=settings.penalty_steps,
+        root_steps=settings.root_steps,
+        step_rule=settings.step_rule,
+        quantum=quantum,
+    )
 
 
 def _longest(instance: Instance, settings: SearchSettings) -> float:
@@ -214,6 +272,7 @@ def trail_header(
         fault=settings.fault,
         record=settings.record,
         record_under=settings.record_under,
+        penalties=penalty_settings(instance, settings),
     )
     return TrailHeader(instance=instance, solver=solver, columns=trail_columns(instance, settings))
 
@@ -228,28 +287,28 @@ def child_order(matrix: NDArray[np.float64], order: str) -> NDArray[np.int32]:
     return out
 
 
-class _Buffers:
-    """The kernel's record buffer (structure of arrays, already in the trail's narrow
-    dtypes, so handing a block over is a plain copy) and its event table."""
+def record_buffer(rows: int, layout: tuple[Column, ...], n: int) -> engine.Record:
+    """The kernel's record buffer: one array per engine column in the trail's narrow dtype
+    (so handing a block over is a plain copy); columns this bound does not fill get one
+    row, which the kernel never writes."""
+    dtypes = {c.name: c.dtype for c in layout}
+    return engine.Record(
+        *(
+            np.zeros(rows if name in dtypes else 1, dtype=dtypes.get(name, layout_default(name, n)))
+            for name in ENGINE_COLUMNS
+        )
+    )
 
-    def __init__(self, n: int, rows: int, layout: tuple[Column, ...]) -> None:
-        dtype = {c.name: c.dtype for c in layout}
-        self.city = np.zeros(rows, dtype=dtype[CITY])
-        self.depth = np.zeros(rows, dtype=dtype[DEPTH])
-        self.partial = np.zeros(rows, dtype=dtype[PARTIAL])
-        self.tree = np.zeros(rows, dtype=dtype[TREE])
-        self.link_in = np.zeros(rows, dtype=dtype[LINK_IN])
-        self.link_in_city = np.zeros(rows, dtype=dtype[LINK_IN_CITY])
-        self.link_out = np.zeros(rows, dtype=dtype[LINK_OUT])
-        self.link_out_city = np.zeros(rows, dtype=dtype[LINK_OUT_CITY])
-        self.decision = np.zeros(rows, dtype=dtype[DECISION])
-        self.ev_at = np.zeros(_EVENT_ROWS, dtype=np.int64)
-        self.ev_node = np.zeros(_EVENT_ROWS, dtype=np.int64)
-        self.ev_length = np.zeros(_EVENT_ROWS, dtype=np.float64)
-        self.ev_tour = np.zeros((_EVENT_ROWS, n), dtype=np.int32)
 
-    def block(self, fill: int, columns: tuple[Column, ...]) -> dict[str, NDArray[Any]]:
-        return {c.name: getattr(self, c.name)[:fill].copy() for c in columns}
+def layout_default(name: str, n: int) -> np.dtype[Any]:
+    """The dtype of an unused engine column's placeholder (any dtype the kernel accepts)."""
+    return column_layout((name,), n, False, 1.0, True)[0].dtype
+
+
+def block(buffer: engine.Record, fill: int, columns: tuple[Column, ...]) -> dict[str, NDArray[Any]]:
+    """The first `fill` rows of the buffer's trail columns, copied for the sink."""
+    arrays = buffer._asdict()
+    return {c.name: arrays[c.name][:fill].copy() for c in columns}
 
 
 def run_search(
@@ -277,22 +336,28 @@ def run_search(
     columns = trail_columns(instance, settings)
     record = sink is not None and settings.record != "none"
     prefix = np.array(settings.record_under or (0,), dtype=np.int32)
-    buffers = _Buffers(n, BLOCK_ROWS, layout)
-    no_length = float(absent_value(buffers.partial.dtype))
-    no_city = int(absent_value(buffers.city.dtype))
+    buffer = record_buffer(BLOCK_ROWS, layout, n)
+    events = engine.new_events(n, _EVENT_ROWS)
+    dtypes = {c.name: c.dtype for c in layout}
+    quantum, pi_limit = penalty_quantum(instance)
+    rule = engine.Rule(
+        cutoff=settings.cutoff,
+        bound=_BOUND_CODES[settings.bound],
+        fault=fault_code(settings.fault),
+        record=record,
+        no_part=float(absent_value(dtypes[TREE])),
+        no_city=int(absent_value(dtypes[CITY])),
+        steps=settings.penalty_steps,
+        root_steps=settings.root_steps,
+        step_rule=STEP_RULES[settings.step_rule],
+        quantum=quantum,
+        pi_limit=pi_limit,
+        integral=bool(instance.integral),
+    )
     state = np.zeros(engine.STATE_SLOTS, dtype=np.int64)
     incumbent = np.array([math.inf if start is None else float(start.length)])
     best_tour: list[int] | None = None if start is None else [int(c) for c in start.tour]
-    scratch = {
-        "path": np.zeros(n, dtype=np.int32),
-        "visited": np.zeros(n, dtype=np.bool_),
-        "partial_at": np.zeros(n, dtype=np.float64),
-        "child_pos": np.zeros(n, dtype=np.int32),
-        "match_at": np.zeros(n, dtype=np.int32),
-        "key": np.full(n, np.inf),
-        "rest": np.zeros(n + 2, dtype=np.int32),
-        "members": np.zeros(n + 2, dtype=np.int32),
-    }
+    scratch = engine.new_scratch(n)
     counts = np.zeros(len(DECISION_NAMES), dtype=np.int64)
     children = child_order(dist, settings.order)
     max_nodes = -1 if settings.max_nodes is None else settings.max_nodes
@@ -306,37 +371,14 @@ def run_search(
         code: int = engine.run_kernel(
             dist,
             children,
-            settings.cutoff,
-            settings.bound == TREE_LINKS,
-            fault_code(settings.fault),
+            rule,
             incumbent,
             state,
-            scratch["path"],
-            scratch["visited"],
-            scratch["partial_at"],
-            scratch["child_pos"],
-            scratch["match_at"],
+            scratch,
             prefix,
-            record,
-            no_length,
-            no_city,
-            buffers.city,
-            buffers.depth,
-            buffers.partial,
-            buffers.tree,
-            buffers.link_in,
-            buffers.link_in_city,
-            buffers.link_out,
-            buffers.link_out_city,
-            buffers.decision,
-            buffers.ev_at,
-            buffers.ev_node,
-            buffers.ev_length,
-            buffers.ev_tour,
+            buffer,
+            events,
             counts,
-            scratch["key"],
-            scratch["rest"],
-            scratch["members"],
             steps,
             max_nodes,
         )
@@ -352,21 +394,21 @@ def run_search(
         code = advance(_STEPS_PER_SLICE)
         now = time.perf_counter()
         fill = int(state[engine.S_FILL])
-        events = int(state[engine.S_EVENTS])
+        improved = int(state[engine.S_EVENTS])
         if (
             sink is not None
             and fill
-            and (events or code != engine.STEPS_SPENT or now - last_flush >= _FLUSH_SECONDS)
+            and (improved or code != engine.STEPS_SPENT or now - last_flush >= _FLUSH_SECONDS)
         ):
-            sink.write_nodes(buffers.block(fill, columns))
+            sink.write_nodes(block(buffer, fill, columns))
             state[engine.S_FILL] = 0
             last_flush = now
-        for e in range(events):
+        for e in range(improved):
             update = BestUpdate(
-                at=int(buffers.ev_at[e]),
-                node=int(buffers.ev_node[e]),
-                length=float(buffers.ev_length[e]),
-                tour=tuple(int(c) for c in buffers.ev_tour[e]),
+                at=int(events.at[e]),
+                node=int(events.node[e]),
+                length=float(events.length[e]),
+                tour=tuple(int(c) for c in events.tour[e]),
             )
             improvements.append(update)
             best_tour = list(update.tour)
@@ -393,7 +435,7 @@ def run_search(
             status = INTERRUPTED
             break
     if sink is not None and state[engine.S_FILL]:
-        sink.write_nodes(buffers.block(int(state[engine.S_FILL]), columns))
+        sink.write_nodes(block(buffer, int(state[engine.S_FILL]), columns))
     length = None if math.isinf(incumbent[0]) else float(incumbent[0])
     return SearchResult(
         length=length,

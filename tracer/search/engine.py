@@ -6,17 +6,30 @@ search is done; every bit of search state lives in arrays the caller owns, so th
 carries on exactly where this one stopped. That single shape gives streaming to disk, a live
 progress bar, Ctrl-C and time limits without threads touching the search.
 
-Bound at a node with path p0..pm and unvisited set U: partial length + minimum spanning tree
-over U (Prim, O(k²)) + cheapest edge pm→U + cheapest edge U→p0. Planted faults reproduce
+The caller's arrays travel as four named tuples: `Rule` (the settings), `Scratch` (the
+search state), `Record` (the record buffer: one array per column of
+`tracer.base.ENGINE_COLUMNS`, in the trail's dtypes, so a new column is a schema entry and
+one line here) and `Events` (incumbent improvements). Numba compiles them as tuples.
+
+Bound at a node with path p0..pm and unvisited set U (tree+links): partial length + minimum
+spanning tree over U (Prim, O(k²)) + cheapest edge pm→U + cheapest edge U→p0. The penalties
+bound adds a penalty π_u to every edge at u, so the same structure is found over penalised
+lengths and 2·Σπ is taken off again (valid for every π: in a tour's remainder every city of
+U has degree 2); subgradient steps raise it, warm-started from the parent's π. Penalties are
+whole multiples of a power-of-two quantum, so over whole-number lengths every sum is exact
+and the re-check can reproduce each recorded number bit for bit. Planted faults reproduce
 classic mistakes on purpose and record the numbers the faulty code really computed.
 """
 
 from __future__ import annotations
 
+from collections import namedtuple
+from typing import Any
+
 import numpy as np
 from numba import njit
 
-from tracer.base import Decision
+from tracer.base import ENGINE_COLUMNS, Decision
 
 # Return codes of `run_kernel`.
 DONE = 0
@@ -25,12 +38,21 @@ STEPS_SPENT = 2
 EVENTS_FULL = 3
 NODE_LIMIT = 4
 
+# Bound kinds (the user-facing names live in tracer.search.driver).
+BOUND_NONE = 0
+BOUND_TREE_LINKS = 1
+BOUND_PENALTIES = 2
+
 # Planted faults (0 = none); the user-facing names live in tracer.search.faults.
 FAULT_NONE = 0
 FAULT_POSITIONS = 1  # tree over path positions m+1..n-1 instead of the unvisited cities
 FAULT_STALE_KEYS = 2  # Prim's key table is not reset between nodes
 FAULT_SQUARED = 3  # tree and links summed over squared edge lengths
 FAULT_SPANS_ENDS = 4  # tree also spans the path's two end cities, links still added
+FAULT_PENALTY_ONCE = 5  # penalties bound: the penalty term takes each π once, not twice
+
+# Step rules of the penalties bound.
+STEP_GAP = 0  # Polyak: t = λ (incumbent − bound) / Σ(deg − 2)², λ shrinking each step
 
 # Slots of the integer state vector.
 S_DEPTH = 0  # depth of the current node
@@ -42,6 +64,52 @@ S_EVENTS = 5  # incumbent improvements in the event table
 S_STARTED = 6  # 1 once the root has been set up
 STATE_SLOTS = 7
 
+#: The record buffer: one array per engine column, named as the schema names them.
+#: (Built from the schema, so its fields are not known to the type checker.)
+Record: Any = namedtuple("Record", ENGINE_COLUMNS)  # type: ignore[misc]
+#: The event table: first recorded id that sees the improvement, recorded id of the
+#: improving node (-1 if not recorded), its length, its tour (E, n).
+Events = namedtuple("Events", ("at", "node", "length", "tour"))
+#: The search's state between calls (all by depth or by city; see `new_scratch`).
+Scratch = namedtuple(
+    "Scratch",
+    (
+        "path",  # int32 (n,): the current path
+        "visited",  # bool (n,)
+        "partial_at",  # float64 (n,): partial length at each depth
+        "child_pos",  # int32 (n,): next child to try at each depth
+        "match_at",  # int32 (n,): common prefix length of path[0..d] with the record prefix
+        "key",  # float64 (n,): Prim's key table, by city
+        "rest",  # int32 (n + 2,): cities outside the tree
+        "members",  # int32 (n + 2,): tree cities
+        "pi",  # int64 (n, n): penalties bound, each depth's π in quanta, by city
+        "best_pi",  # int64 (n,): the best π of the current node
+        "value",  # float64 (n,): π in length units, by city
+        "near",  # int32 (n,): the tree city each outside city is closest to
+        "degree",  # int64 (n,): degrees in the relaxed structure
+    ),
+)
+#: The search's settings: cutoff, bound kind, fault, whether to record, the absent value of
+#: a bound part and of a city, the penalties bound's steps (per node, at the root), step
+#: rule, quantum, largest |π| in quanta, and whether lengths are whole numbers.
+Rule = namedtuple(
+    "Rule",
+    (
+        "cutoff",
+        "bound",
+        "fault",
+        "record",
+        "no_part",
+        "no_city",
+        "steps",
+        "root_steps",
+        "step_rule",
+        "quantum",
+        "pi_limit",
+        "integral",
+    ),
+)
+
 _ENTER = 0
 _NEXT = 1
 _BACK = 2
@@ -51,6 +119,35 @@ _PRUNE = int(Decision.PRUNE)
 _SKIP = int(Decision.SKIP)
 _TOUR_BETTER = int(Decision.TOUR_BETTER)
 _TOUR = int(Decision.TOUR)
+
+
+def new_scratch(n: int) -> Scratch:
+    """Zeroed search state for an n-city search."""
+    return Scratch(
+        path=np.zeros(n, dtype=np.int32),
+        visited=np.zeros(n, dtype=np.bool_),
+        partial_at=np.zeros(n, dtype=np.float64),
+        child_pos=np.zeros(n, dtype=np.int32),
+        match_at=np.zeros(n, dtype=np.int32),
+        key=np.full(n, np.inf),
+        rest=np.zeros(n + 2, dtype=np.int32),
+        members=np.zeros(n + 2, dtype=np.int32),
+        pi=np.zeros((n, n), dtype=np.int64),
+        best_pi=np.zeros(n, dtype=np.int64),
+        value=np.zeros(n, dtype=np.float64),
+        near=np.zeros(n, dtype=np.int32),
+        degree=np.zeros(n, dtype=np.int64),
+    )
+
+
+def new_events(n: int, rows: int) -> Events:
+    """An empty event table of `rows` incumbent improvements."""
+    return Events(
+        at=np.zeros(rows, dtype=np.int64),
+        node=np.zeros(rows, dtype=np.int64),
+        length=np.zeros(rows, dtype=np.float64),
+        tour=np.zeros((rows, n), dtype=np.int32),
+    )
 
 
 @njit(cache=True, nogil=True)
@@ -112,41 +209,165 @@ def _tree_weight(
 
 
 @njit(cache=True, nogil=True)
+def _penalised_tree(dist: np.ndarray, members: np.ndarray, k: int, sc: Scratch) -> float:
+    """Prim over members[0:k] with lengths d(u, v) + π_u + π_v; adds each tree city's
+    degree to `sc.degree` (the same passes as `_tree_weight`, with a nearest-city table)."""
+    value = sc.value
+    key = sc.key
+    rest = sc.rest
+    near = sc.near
+    degree = sc.degree
+    if k <= 1:
+        return 0.0
+    first = members[0]
+    m = k - 1
+    best = np.inf
+    at = 0
+    base = value[first]
+    for j in range(m):
+        c = members[j + 1]
+        rest[j] = c
+        w = dist[first, c] + base
+        key[c] = w
+        near[c] = first
+        if w + value[c] < best:
+            best = w + value[c]
+            at = j
+    total = 0.0
+    while True:
+        pick = rest[at]
+        total += best
+        degree[pick] += 1
+        degree[near[pick]] += 1
+        m -= 1
+        rest[at] = rest[m]
+        if m == 0:
+            return total
+        row = dist[pick]
+        base = value[pick]
+        best = np.inf
+        for j in range(m):
+            c = rest[j]
+            w = row[c] + base
+            kc = key[c]
+            if w < kc:
+                kc = w
+                key[c] = w
+                near[c] = pick
+            kc += value[c]
+            if kc < best:
+                best = kc
+                at = j
+
+
+@njit(cache=True, nogil=True)
+def _penalties_bound(
+    dist: np.ndarray,
+    rule: Rule,
+    sc: Scratch,
+    d: int,
+    cnt: int,
+    partial: float,
+    inc: float,
+    parts: np.ndarray,
+) -> float:
+    """The penalties bound at the node at depth d (unvisited cities in sc.members[0:cnt]).
+
+    Starts from the parent's π (zero at the root), takes up to `rule.steps` subgradient
+    steps (`rule.root_steps` at the root), stops early once the bound reaches the incumbent
+    or every degree is 2, and leaves the best π found in row d of `sc.pi` for the children.
+    Writes the best π's tree, link in, its city, link out, its city and penalty term into
+    `parts` and returns its bound (before rounding up).
+    """
+    members = sc.members
+    value = sc.value
+    degree = sc.degree
+    pi = sc.pi[d]
+    last = sc.path[d]
+    q = rule.quantum
+    if d > 0:
+        above = sc.pi[d - 1]
+        for j in range(cnt):
+            pi[members[j]] = above[members[j]]
+    else:
+        for j in range(cnt):
+            pi[members[j]] = 0
+    steps = rule.root_steps if d == 0 else rule.steps
+    once = rule.fault == FAULT_PENALTY_ONCE
+    best = -np.inf
+    lam = 2.0
+    for step in range(steps + 1):
+        penalty = 0.0
+        for j in range(cnt):
+            c = members[j]
+            v = pi[c] * q
+            value[c] = v
+            penalty += v
+            degree[c] = 0
+        if not once:
+            penalty += penalty
+        tree = _penalised_tree(dist, members, cnt, sc)
+        lin = np.inf
+        lin_city = 0
+        lout = np.inf
+        lout_city = 0
+        row_in = dist[last]
+        for j in range(cnt):
+            c = members[j]
+            a = row_in[c] + value[c]
+            b = dist[c, 0] + value[c]
+            if a < lin:
+                lin = a
+                lin_city = c
+            if b < lout:
+                lout = b
+                lout_city = c
+        degree[lin_city] += 1
+        degree[lout_city] += 1
+        bound = partial + tree + lin + lout - penalty
+        if bound > best:
+            best = bound
+            parts[0] = tree
+            parts[1] = lin
+            parts[2] = lin_city
+            parts[3] = lout
+            parts[4] = lout_city
+            parts[5] = penalty
+            for j in range(cnt):
+                sc.best_pi[members[j]] = pi[members[j]]
+        reached = np.ceil(bound) if rule.integral else bound
+        if reached >= inc or step == steps:
+            break
+        square = 0
+        for j in range(cnt):
+            g = degree[members[j]] - 2
+            square += g * g
+        if square == 0:
+            break  # the relaxed structure is a path through U: nothing left to gain
+        target = inc if inc < np.inf else abs(bound) * 1.05 + 1.0
+        t = lam * (target - bound) / square / q
+        for j in range(cnt):
+            c = members[j]
+            move = pi[c] + round(t * (degree[c] - 2))
+            pi[c] = min(max(move, -rule.pi_limit), rule.pi_limit)
+        lam *= 0.9
+    for j in range(cnt):
+        pi[members[j]] = sc.best_pi[members[j]]
+    return best
+
+
+@njit(cache=True, nogil=True)
 def run_kernel(
     dist: np.ndarray,  # float64 (n, n)
     children: np.ndarray,  # int32 (n, n-1): candidate next cities of each city, in order
-    cutoff: int,
-    use_bound: bool,
-    fault: int,
+    rule: Rule,
     incumbent: np.ndarray,  # float64 (1,)
     state: np.ndarray,  # int64 (STATE_SLOTS,)
-    path: np.ndarray,  # int32 (n,)
-    visited: np.ndarray,  # bool (n,)
-    partial_at: np.ndarray,  # float64 (n,)
-    child_pos: np.ndarray,  # int32 (n,)
-    match_at: np.ndarray,  # int32 (n,): common prefix length of path[0..d] with `prefix`
+    sc: Scratch,
     prefix: np.ndarray,  # int32 (P,): record only this node's subtree and its path (P >= 1)
-    record: bool,
-    no_length: float,  # what an absent length is written as
-    no_city: int,  # what an absent city is written as
-    # the record buffer, one array per trail column, already in the trail's dtypes
-    buf_city: np.ndarray,  # (B,)
-    buf_depth: np.ndarray,
-    buf_partial: np.ndarray,
-    buf_tree: np.ndarray,
-    buf_link_in: np.ndarray,
-    buf_link_in_city: np.ndarray,
-    buf_link_out: np.ndarray,
-    buf_link_out_city: np.ndarray,
-    buf_decision: np.ndarray,
-    ev_at: np.ndarray,  # int64 (E,): first recorded id that sees the improvement
-    ev_node: np.ndarray,  # int64 (E,): recorded id of the improving node, -1 if not recorded
-    ev_length: np.ndarray,  # float64 (E,)
-    ev_tour: np.ndarray,  # int32 (E, n)
+    rec: Any,  # a Record: (B,) per column, already in the trail's dtypes
+    ev: Events,
     counts: np.ndarray,  # int64 (5,): nodes per decision code
-    key: np.ndarray,  # float64 (n,): Prim's key table, by city
-    rest: np.ndarray,  # int32 (n + 2,): scratch list of cities outside the tree
-    members: np.ndarray,  # int32 (n + 2,): scratch list of tree cities
     max_steps: int,
     max_nodes: int,  # < 0: no limit
 ) -> int:
@@ -154,15 +375,21 @@ def run_kernel(
     NODE_LIMIT. All state is in the arrays, so calling again resumes."""
     n = dist.shape[0]
     n_prefix = prefix.shape[0]
-    cap = buf_city.shape[0]
-    ev_cap = ev_at.shape[0]
+    cap = rec.decision.shape[0]
+    ev_cap = ev.at.shape[0]
+    path = sc.path
+    visited = sc.visited
+    partial_at = sc.partial_at
+    members = sc.members
+    match_at = sc.match_at
+    child_pos = sc.child_pos
     if state[S_STARTED] == 0:
         state[S_STARTED] = 1
         path[0] = 0
         visited[:] = False
         visited[0] = True
         partial_at[0] = 0.0
-        key[:] = np.inf
+        sc.key[:] = np.inf
         match_at[0] = 1 if prefix[0] == 0 else 0
         state[S_DEPTH] = 0
         state[S_PHASE] = _ENTER
@@ -175,8 +402,11 @@ def run_kernel(
     steps = 0
     status = DONE
     inc = incumbent[0]
+    fault = rule.fault
     stale = fault == FAULT_STALE_KEYS
     squared = fault == FAULT_SQUARED
+    penalised = rule.bound == BOUND_PENALTIES
+    parts = np.zeros(6)
     while True:
         if phase == _ENTER:
             if max_nodes >= 0 and nodes >= max_nodes:
@@ -201,24 +431,42 @@ def run_kernel(
                 if m == d and d < n_prefix and path[d] == prefix[d]:
                     m = d + 1
                 match_at[d] = m
-            keep = record and match_at[d] == min(d + 1, n_prefix)
-            tree = no_length
-            lin = no_length
-            lin_city = no_city
-            lout = no_length
-            lout_city = no_city
+            keep = rule.record and match_at[d] == min(d + 1, n_prefix)
+            tree = rule.no_part
+            lin = rule.no_part
+            lin_city = rule.no_city
+            lout = rule.no_part
+            lout_city = rule.no_city
+            penalty = rule.no_part
+            bounded = False
+            cnt = 0
             if k == 0:
                 lout = dist[last, 0]
                 lout_city = 0
                 length = partial + lout
                 decision = _TOUR_BETTER if length < inc else _TOUR
-            elif not use_bound:
+            elif rule.bound == BOUND_NONE:
                 decision = _SKIP
-            elif k <= cutoff:
+            elif k <= rule.cutoff:
                 decision = _PRUNE if partial >= inc else _SKIP
+            elif penalised:
+                for c in range(n):
+                    if not visited[c]:
+                        members[cnt] = c
+                        cnt += 1
+                bound = _penalties_bound(dist, rule, sc, d, cnt, partial, inc, parts)
+                tree = parts[0]
+                lin = parts[1]
+                lin_city = int(parts[2])
+                lout = parts[3]
+                lout_city = int(parts[4])
+                penalty = parts[5]
+                bounded = True
+                if rule.integral:
+                    bound = np.ceil(bound)
+                decision = _PRUNE if bound >= inc else _EXPAND
             else:
                 # the unvisited cities, and both links, in one scan
-                cnt = 0
                 lin = np.inf
                 lout = np.inf
                 row_in = dist[last]
@@ -246,30 +494,38 @@ def run_kernel(
                     if last != 0:
                         members[cnt] = 0
                         cnt += 1
-                tree = _tree_weight(dist, members, cnt, key, rest, stale, squared)
+                tree = _tree_weight(dist, members, cnt, sc.key, sc.rest, stale, squared)
                 bound = partial + tree + lin + lout
                 decision = _PRUNE if bound >= inc else _EXPAND
             counts[decision] += 1
             if keep:
-                buf_city[fill] = last
-                buf_depth[fill] = d
-                buf_partial[fill] = partial
-                buf_tree[fill] = tree
-                buf_link_in[fill] = lin
-                buf_link_in_city[fill] = lin_city
-                buf_link_out[fill] = lout
-                buf_link_out_city[fill] = lout_city
-                buf_decision[fill] = decision
+                rec.city[fill] = last
+                rec.depth[fill] = d
+                rec.partial[fill] = partial
+                rec.tree[fill] = tree
+                rec.link_in[fill] = lin
+                rec.link_in_city[fill] = lin_city
+                rec.link_out[fill] = lout
+                rec.link_out_city[fill] = lout_city
+                rec.decision[fill] = decision
+                if penalised:
+                    rec.penalty[fill] = penalty
+                    row = rec.pi[fill]
+                    row[:] = 0
+                    if bounded:
+                        pi = sc.pi[d]
+                        for j in range(cnt):
+                            row[members[j]] = pi[members[j]]
                 fill += 1
                 recorded += 1
             if decision == _TOUR_BETTER:
                 inc = partial + lout
                 incumbent[0] = inc
-                ev_at[events] = recorded
-                ev_node[events] = recorded - 1 if keep else -1
-                ev_length[events] = inc
+                ev.at[events] = recorded
+                ev.node[events] = recorded - 1 if keep else -1
+                ev.length[events] = inc
                 for j in range(n):
-                    ev_tour[events, j] = path[j]
+                    ev.tour[events, j] = path[j]
                 events += 1
             if decision == _EXPAND or decision == _SKIP:  # noqa: SIM109 (compiled code)
                 child_pos[d] = 0

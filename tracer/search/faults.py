@@ -6,6 +6,7 @@ looks like in a trail and tests prove the independent re-check finds it.
 
 from __future__ import annotations
 
+from tracer.base import PENALTIES, TREE_LINKS
 from tracer.search import engine
 
 #: Fault name -> (engine code, one line of help).
@@ -27,7 +28,19 @@ FAULTS: dict[str, tuple[int, str]] = {
         "tree also spans the path's two end cities while both links are still added "
         "(overestimates, cuts the optimal branch)",
     ),
+    "penalty-once": (
+        engine.FAULT_PENALTY_ONCE,
+        "penalties bound: the penalty term takes each city's penalty once, not twice "
+        "(the bound is off by the sum of the penalties)",
+    ),
 }
+#: Faults of a bound other than tree+links, by name.
+_FAULT_BOUNDS = {"penalty-once": PENALTIES}
+
+
+def fault_bound(name: str) -> str:
+    """The bound a planted fault belongs to."""
+    return _FAULT_BOUNDS.get(name, TREE_LINKS)
 
 
 def fault_code(name: str | None) -> int:

@@ -13,9 +13,8 @@ and a notice saying where it stops.
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
-from typing import Any, BinaryIO, TypeGuard
+from typing import Any, BinaryIO, NamedTuple
 
 import msgpack
 import numpy as np
@@ -25,10 +24,10 @@ from numpy.typing import NDArray
 from tracer.base import (
     BEST,
     BOUND,
+    CITY,
     CITY_COLUMNS,
     CODECS,
     DECISION,
-    DECISION_BY_NAME,
     DECISION_NAMES,
     DEPTH,
     END,
@@ -39,7 +38,9 @@ from tracer.base import (
     LINK_OUT_CITY,
     MAX_BLOCK_NODES,
     MAX_FRAME_BYTES,
-    MAX_TRAIL_CITIES,
+    MAX_LIST_ITEMS,
+    MAX_MAP_ITEMS,
+    MAX_STRING_BYTES,
     MAX_TRAIL_NODES,
     NODE,
     NODES,
@@ -50,12 +51,21 @@ from tracer.base import (
     BestUpdate,
     Column,
     EndInfo,
+    FieldError,
     HeaderError,
     InputError,
     Trail,
     TrailHeader,
     absent_value,
+    best_tour,
+    city_value,
+    decision_code,
     from_wire,
+    is_int,
+    is_number,
+    link_value,
+    recorded_length,
+    show_value,
 )
 
 _READ_SIZE = 1 << 20
@@ -78,11 +88,20 @@ def _unpacker(source: BinaryIO | None) -> msgpack.Unpacker:
         strict_map_key=True,
         max_buffer_size=MAX_FRAME_BYTES,
         max_bin_len=MAX_FRAME_BYTES,
-        max_str_len=1 << 16,
-        max_array_len=max(MAX_TRAIL_CITIES, 4 * 16),
-        max_map_len=64,
+        max_str_len=MAX_STRING_BYTES,
+        max_array_len=MAX_LIST_ITEMS,
+        max_map_len=MAX_MAP_ITEMS,
         max_ext_len=0,
     )
+
+
+class _Block(NamedTuple):
+    """One node block as framed: still compressed, with the byte offset of its frame."""
+
+    nodes: int
+    codec: str
+    payload: dict[str, bytes]
+    offset: int  # of the `nodes` frame, or of the first `node` frame batched into it
 
 
 class _Frames:
@@ -91,12 +110,16 @@ class _Frames:
     def __init__(self, path: str) -> None:
         self.path = path
         self.header: TrailHeader | None = None
-        self.blocks: list[tuple[int, str, dict[str, bytes]]] = []
+        self.blocks: list[_Block] = []
         self.total = 0
         self.best: list[BestUpdate] = []
         self.end: EndInfo | None = None
         self._pending: dict[str, list[Any]] | None = None
         self._pending_count = 0
+        self._pending_offset = 0
+        self.end_offset = -1
+        #: Where the first frame not yet complete starts (the file's end when all are).
+        self.resume = 0
 
     def fail(self, offset: int, message: str) -> CorruptTrailError:
         return CorruptTrailError(self.path, offset, message, None)
@@ -139,7 +162,7 @@ class _Frames:
     def _nodes(self, frame: dict[str, Any], offset: int) -> None:
         assert self.header is not None
         first, count, codec = frame.get("first"), frame.get("count"), frame.get("codec", "none")
-        if not _is_int(count) or not 0 < count <= MAX_BLOCK_NODES:
+        if not is_int(count) or not 0 < count <= MAX_BLOCK_NODES:
             raise self.fail(offset, f"nodes frame count must be 1..{MAX_BLOCK_NODES}")
         if first != self.total:
             raise self.fail(offset, f"nodes frame starts at id {first!r}, expected {self.total}")
@@ -160,7 +183,8 @@ class _Frames:
                 )
         if self.total + count > MAX_TRAIL_NODES:
             raise self.fail(offset, f"more than {MAX_TRAIL_NODES} nodes")
-        self.blocks.append((count, codec, {c.name: payload[c.name] for c in self.header.columns}))
+        columns = {c.name: payload[c.name] for c in self.header.columns}
+        self.blocks.append(_Block(count, codec, columns, offset))
         self.total += count
 
     def _node(self, frame: dict[str, Any], offset: int) -> None:
@@ -174,6 +198,7 @@ class _Frames:
             )
         if self._pending is None:
             self._pending = {c.name: [] for c in self.header.columns}
+            self._pending_offset = offset
         values = _node_values(frame, self.header)
         if isinstance(values, str):
             raise self.fail(offset, values)
@@ -189,7 +214,7 @@ class _Frames:
         payload: dict[str, bytes] = {}
         for col in self.header.columns:
             payload[col.name] = np.array(self._pending[col.name], dtype=col.dtype).tobytes()
-        self.blocks.append((self._pending_count, "none", payload))
+        self.blocks.append(_Block(self._pending_count, "none", payload, self._pending_offset))
         self.total += self._pending_count
         self._pending = None
         self._pending_count = 0
@@ -198,31 +223,40 @@ class _Frames:
         assert self.header is not None
         n = self.header.instance.n
         at, node, length, tour = (frame.get(k) for k in ("at", "node", "length", "tour"))
-        if not _is_int(at) or at < 0:
-            raise self.fail(offset, "best frame needs 'at', a node id >= 0")
+        if not is_int(at) or not 0 <= at <= MAX_TRAIL_NODES:
+            raise self.fail(offset, f"best frame needs 'at', a node id 0..{MAX_TRAIL_NODES}")
         if node is None:
             node = -1
-        if not _is_int(node) or node < -1:
+        if not is_int(node) or not -1 <= node < MAX_TRAIL_NODES:
             raise self.fail(offset, "best frame's 'node' must be a node id or -1")
-        if not _is_number(length):
-            raise self.fail(offset, "best frame needs a finite 'length'")
-        if (
-            not isinstance(tour, list)
-            or len(tour) > n
-            or not all(_is_int(c) and 0 <= c < n for c in tour)
-        ):
-            raise self.fail(offset, f"best frame's 'tour' must list at most {n} cities")
-        return BestUpdate(at=at, node=node, length=float(length), tour=tuple(tour))
+        if node >= 0 and at != node + 1 and not self.header.solver.visit_order:
+            raise self.fail(
+                offset, f"best frame's 'at' must be its node + 1 ({node + 1}), found {at}"
+            )
+        try:
+            value = recorded_length(length)
+        except FieldError as exc:
+            raise self.fail(offset, f"best frame's 'length' {exc}") from None
+        try:
+            cities = best_tour(tour, n)
+        except FieldError as exc:
+            raise self.fail(offset, f"best frame's 'tour' {exc}") from None
+        return BestUpdate(at=at, node=node, length=value, tour=cities)
 
     def _end(self, frame: dict[str, Any], offset: int) -> EndInfo:
+        self.end_offset = offset
         status = frame.get("status")
         if status not in STATUSES:
-            raise self.fail(offset, f"end frame status must be one of {', '.join(STATUSES)}")
+            raise self.fail(
+                offset,
+                f"end frame status must be one of {', '.join(STATUSES)}, "
+                f"found {show_value(status)}",
+            )
         raw_decisions = frame.get("decisions") or {}
         if not isinstance(raw_decisions, dict):
             raise self.fail(offset, "end frame's 'decisions' must be a map")
         decisions = {
-            k: int(v) for k, v in raw_decisions.items() if k in DECISION_NAMES and _is_int(v)
+            k: int(v) for k, v in raw_decisions.items() if k in DECISION_NAMES and is_int(v)
         }
         length = frame.get("length")
         tour = frame.get("tour")
@@ -231,46 +265,36 @@ class _Frames:
             nodes=_int_or(frame.get("nodes"), self.total),
             recorded=_int_or(frame.get("recorded"), self.total),
             decisions=decisions,
-            seconds=float(frame["seconds"]) if _is_number(frame.get("seconds")) else 0.0,
-            length=float(length) if _is_number(length) else None,
+            seconds=float(frame["seconds"]) if is_number(frame.get("seconds")) else 0.0,
+            length=float(length) if is_number(length) else None,
             tour=[int(c) for c in tour]
-            if isinstance(tour, list) and all(_is_int(c) for c in tour)
+            if isinstance(tour, list) and all(is_int(c) for c in tour)
             else None,
         )
 
 
-def _is_int(value: Any) -> TypeGuard[int]:
-    return isinstance(value, int) and not isinstance(value, bool)
-
-
-def _is_number(value: Any) -> TypeGuard[int | float]:
-    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
-
-
 def _int_or(value: Any, default: int) -> int:
-    return int(value) if _is_int(value) else default
+    return int(value) if is_int(value) else default
 
 
 def _node_values(frame: dict[str, Any], header: TrailHeader) -> dict[str, int | float] | str:
     """Column values of a single-record frame, or the reason it is malformed."""
     out: dict[str, int | float] = {}
-    decision = frame.get("decision")
-    if isinstance(decision, str):
-        if decision not in DECISION_BY_NAME:
-            known = ", ".join(DECISION_NAMES)
-            return f"unknown decision {decision[:20]!r}; expected one of {known}"
-        out[DECISION] = int(DECISION_BY_NAME[decision])
-    elif _is_int(decision) and 0 <= decision < len(DECISION_NAMES):
-        out[DECISION] = decision
-    else:
-        return "node frame needs a 'decision'"
-    for key in (CITY_COLUMNS[0], DEPTH):
-        if not _is_int(frame.get(key)) or not 0 <= frame[key] < header.instance.n:
-            return f"node frame needs '{key}', a whole number 0..{header.instance.n - 1}"
-        out[key] = frame[key]
+    n = header.instance.n
+    if DECISION not in frame:
+        return f"node frame needs a '{DECISION}'"
+    try:
+        out[DECISION] = decision_code(frame[DECISION], codes=True)
+    except FieldError as exc:
+        return f"node frame's '{DECISION}': {exc}"
+    for key in (CITY, DEPTH):  # a depth is below n, as a city is
+        try:
+            out[key] = city_value(frame.get(key), n)
+        except FieldError:
+            return f"node frame needs '{key}', a whole number 0..{n - 1}"
     visit = frame.get(VISIT)
     if visit is not None:
-        if not _is_int(visit) or visit < 0:
+        if not is_int(visit) or visit < 0:
             return f"node frame's '{VISIT}' must be a visit position >= 0"
         out[VISIT] = visit
     for key in (PARTIAL, TREE, BOUND):
@@ -284,23 +308,23 @@ def _node_values(frame: dict[str, Any], header: TrailHeader) -> dict[str, int | 
         link = frame.get(key)
         if link is None:
             continue
-        if (
-            not isinstance(link, list)
-            or len(link) != 2
-            or not _is_int(link[0])
-            or not 0 <= link[0] < header.instance.n
-            or _length_problem(link[1], header.column(key))
-        ):
+        try:
+            link_city, _ = link_value(link, n)
+        except FieldError:
             return f"node frame's '{key}' must be [city, length] or null"
-        out[city_key] = link[0]
+        if _length_problem(link[1], header.column(key)):
+            return f"node frame's '{key}' must be [city, length] or null"
+        out[city_key] = link_city
         out[key] = link[1]
     return out
 
 
 def _length_problem(value: Any, column: Column | None) -> str | None:
     """Why `value` cannot go into a length column, or None if it can."""
-    if not _is_number(value):
-        return "must be a finite number or null"
+    try:
+        recorded_length(value)
+    except FieldError:
+        return "must be a finite number within ±2**53, or null"
     if column is not None and column.dtype.kind in "iu":
         info = np.iinfo(column.dtype.str)
         if not float(value).is_integer() or not info.min < value <= info.max:
@@ -312,10 +336,10 @@ def _decode_into(
     store: dict[str, NDArray[Any]],
     header: TrailHeader,
     pos: int,
-    block: tuple[int, str, dict[str, bytes]],
+    block: _Block,
 ) -> str | None:
     """Decode one block into store[...][pos:pos+count]; returns an error message or None."""
-    count, codec, payload = block
+    count, codec, payload, _ = block
     decompressor = zstandard.ZstdDecompressor()
     for col in header.columns:
         size = count * col.dtype.itemsize
@@ -346,7 +370,7 @@ def _decode_into(
 def _consume(unpacker: msgpack.Unpacker, frames: _Frames) -> CorruptTrailError | None:
     """Hand every complete frame to `frames`; the first corrupt one is returned, not raised."""
     while True:
-        offset = unpacker.tell()
+        offset = frames.resume = unpacker.tell()
         try:
             frame = unpacker.unpack()
         except msgpack.OutOfData:
@@ -376,7 +400,7 @@ def read_trail(path: str | Path) -> Trail:
     with handle:
         unpacker = _unpacker(handle)
         corrupt = _consume(unpacker, frames)
-        stop = unpacker.tell()
+        stop = frames.resume
     frames.finish()
     if frames.header is None:
         if corrupt is not None:
@@ -389,13 +413,21 @@ def read_trail(path: str | Path) -> Trail:
         if problem is not None:
             store = {k: v[:pos] for k, v in store.items()}
             partial = Trail(str(p), frames.header, store, frames.best, None)
-            raise CorruptTrailError(str(p), -1, f"node block {i} (ids {pos}..): {problem}", partial)
-        pos += block[0]
+            message = f"node block {i} (ids {pos}..): {problem}"
+            raise CorruptTrailError(str(p), block.offset, message, partial)
+        pos += block.nodes
     trail = Trail(str(p), frames.header, store, sorted(frames.best, key=lambda b: b.at), frames.end)
     if corrupt is not None:
         corrupt.partial = trail
         raise corrupt
-    if stop < size:
+    disagreement = _end_disagreement(trail)
+    if disagreement is not None:
+        trail.end = None
+        trail.notice = (
+            f"the end frame at byte {frames.end_offset} disagrees with the trail "
+            f"({disagreement}); read as a run without an end"
+        )
+    elif stop < size:
         trail.notice = (
             f"file stops inside a frame at byte {stop} of {size}; "
             f"read {trail.count} nodes before it"
@@ -403,6 +435,27 @@ def read_trail(path: str | Path) -> Trail:
     elif trail.end is None:
         trail.notice = f"no end frame: a live or crashed run ({trail.count} nodes so far)"
     return trail
+
+
+def _end_disagreement(trail: Trail) -> str | None:
+    """Why the end frame cannot be this trail's summary (a damaged byte), or None if it can."""
+    end = trail.end
+    if end is None:
+        return None
+    last = trail.best[-1] if trail.best else None
+    if end.length is not None and (last is None or end.length != last.length):
+        found = "none" if last is None else f"{last.length:g}"
+        return f"it gives length {end.length:g}, the last incumbent update {found}"
+    if end.tour is not None and (last is None or tuple(end.tour) != last.tour):
+        return "its tour is not the last incumbent update's"
+    if end.recorded != trail.count:
+        return f"it counts {end.recorded} records, the trail holds {trail.count}"
+    if end.nodes == trail.count and end.decisions:
+        counts = np.bincount(trail.columns[DECISION], minlength=len(DECISION_NAMES))
+        for code, name in enumerate(DECISION_NAMES):
+            if end.decisions.get(name, 0) != int(counts[code]):
+                return f"it counts {end.decisions.get(name, 0)} {name}, the trail {counts[code]}"
+    return None
 
 
 class TrailFollower:
@@ -443,11 +496,12 @@ class TrailFollower:
         first = self._count
         if header is not None:
             for block in self._frames.blocks[self._decoded_blocks :]:
-                self._reserve(header, self._count + block[0])
+                self._reserve(header, self._count + block.nodes)
                 problem = _decode_into(self._store, header, self._count, block)
                 if problem is not None:
-                    raise CorruptTrailError(str(self.path), -1, problem, None)
-                self._count += block[0]
+                    message = f"node block (ids {self._count}..): {problem}"
+                    raise CorruptTrailError(str(self.path), block.offset, message, None)
+                self._count += block.nodes
                 self._decoded_blocks += 1
             self._frames.blocks.clear()
             self._decoded_blocks = 0
@@ -466,7 +520,13 @@ class TrailFollower:
         header = self._frames.header
         if header is None:
             return None
-        columns = {name: arr[: self._count] for name, arr in self._store.items()}
+        # Before the first block the store is empty: every column is then an empty array.
+        columns = {
+            c.name: self._store[c.name][: self._count]
+            if c.name in self._store
+            else np.empty(0, dtype=c.dtype)
+            for c in header.columns
+        }
         return Trail(
             str(self.path),
             header,

@@ -9,6 +9,7 @@ a node is a short formatted line, cheap next to the bound a solver computes for 
     rec = Recorder("run.trail", matrix, cutoff=3)                # before the search
     me = rec.node(parent_id, city, partial, tree, (c_in, d_in),  # at each node; its children
                   (c_out, d_out), decision="expand")             # pass `me` as their parent
+    # (a solver with a bound of its own: Recorder(..., bound="mine"), rec.node(..., bound=b))
     rec.best(length, tour, node=me)                              # at a better tour
     rec.close()                                                  # after the search
 """
@@ -142,6 +143,7 @@ class Recorder:
         *,
         decision: str | Decision,
         length: SupportsFloat | None = None,
+        bound: SupportsFloat | None = None,
     ) -> int:
         """Record one node, in visit order.
 
@@ -155,7 +157,11 @@ class Recorder:
             link_out: (city, length) of the cheapest edge from the unvisited cities back to
                 city 0, if computed.
             decision: one of expand, prune, skip, tour_better, tour.
-            length: the closed tour's length, at a path holding every city (only there).
+            length: the closed tour's length, at a path holding every city (only there;
+                left out, it is the path plus its closing edge).
+            bound: the solver's own bound for the node, if it computes one (kept as the
+                trail's `bound` column; with a bound name of your own, decisions are judged
+                against it).
 
         Returns:
             The node's id.
@@ -166,6 +172,8 @@ class Recorder:
         ident = self._count
         up = "null" if parent is None else operator.index(parent)
         closing = "" if length is None else f',"length":{_number(length)}'
+        if bound is not None:
+            closing += f',"bound":{_number(bound)}'
         self._file.write(
             f'{{"kind":"node","id":{ident},"parent":{up},"city":{operator.index(city)},'
             f'"partial":{_number(partial)},"tree":{_optional(tree)},"link_in":{_link(link_in)},'

@@ -28,12 +28,23 @@ from tracer.base import (
     NODES,
     BestUpdate,
     EndInfo,
+    PrunetrailError,
     TrailHeader,
     length_value,
     to_wire,
 )
 
 _QUEUE_DEPTH = 4
+
+
+class TrailWriteError(PrunetrailError):
+    """A write failed (a full disk, say); the file keeps every frame written before it."""
+
+    def __init__(self, path: Path, exc: OSError) -> None:
+        super().__init__(
+            f"cannot write {path}: {exc.strerror or exc} "
+            "(the trail stays readable up to its last complete frame)"
+        )
 
 
 class TrailWriter:
@@ -64,13 +75,17 @@ class TrailWriter:
         self._level = level
         self._integral = header.instance.integral
         self._names = [c.name for c in header.columns]
-        self._dtypes = {c.name: c.dtype for c in header.columns}
+        self._dtypes = {c.name: c.dtype.base for c in header.columns}  # a row column: (m, n)
         self._next_id = 0
         self._closed = False
         self._error: BaseException | None = None
         self._file: BinaryIO = open(self.path, "wb")  # noqa: SIM115 (closed in close())
         self._compressor = zstandard.ZstdCompressor(level=level, write_checksum=True)
-        self._emit(msgpack.packb(to_wire(header), use_bin_type=True))
+        try:
+            self._emit(msgpack.packb(to_wire(header), use_bin_type=True))
+        except TrailWriteError:
+            self._file.close()
+            raise
         self._queue: queue.Queue[tuple[int, dict[str, NDArray[Any]]] | bytes | None] | None = None
         self._thread: threading.Thread | None = None
         if threaded:
@@ -178,8 +193,11 @@ class TrailWriter:
         return packed
 
     def _emit(self, data: bytes) -> None:
-        self._file.write(data)
-        self._file.flush()
+        try:
+            self._file.write(data)
+            self._file.flush()
+        except OSError as exc:
+            raise TrailWriteError(self.path, exc) from exc
 
     def _drain(self) -> None:
         assert self._queue is not None

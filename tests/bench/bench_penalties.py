@@ -1,0 +1,114 @@
+"""Benchmark: the penalties bound on TSPLIB instances of 22-76 cities, against the
+prototype's node counts quoted in issue 12, and the cost of recording it.
+
+Run: python tests/bench/bench_penalties.py [--steps N] [--root-steps N] [--cutoff K] [names]
+Every run starts from the nn+2opt+oropt tour (start tour time not included), nearest-first
+children. "recorded" writes every node (π rows included) to a trail, "decisions" writes
+the tree's shape only; bytes/node are the trail's.
+"""
+
+from __future__ import annotations
+
+import argparse
+import tempfile
+import time
+from pathlib import Path
+
+from tests.reference import TSPLIB_OPTIMUM, instance_path
+from tracer.base.frames import EndInfo
+from tracer.formats.load import load_instance
+from tracer.search.driver import SearchSettings, StartTour, make_start, run_search, trail_header
+from tracer.trails.writer import TrailWriter
+
+#: Node counts of the prototype quoted in issue 12 (written apart from the project).
+PROTOTYPE_NODES = {
+    "ulysses22": 819,
+    "bays29": 641,
+    "dantzig42": 6749,
+    "att48": 11955,
+    "eil51": 24148,
+    "berlin52": 21301,
+    "gr48": 204618,
+}
+NAMES = ("ulysses22", "bays29", "dantzig42", "att48", "gr48", "eil51", "berlin52", "st70", "eil76")
+
+
+def recorded(
+    instance: object, settings: SearchSettings, start: StartTour, path: Path
+) -> tuple[float, int, int]:
+    """Seconds, nodes and trail bytes of one recorded run."""
+    writer = TrailWriter(path, trail_header(instance, settings, start, "bench"))  # type: ignore[arg-type]
+    began = time.perf_counter()
+    r = run_search(instance, settings, start, sink=writer)  # type: ignore[arg-type]
+    size = writer.close(
+        EndInfo(r.status, r.nodes, r.recorded, r.decisions, r.seconds, r.length, r.tour)
+    )
+    return time.perf_counter() - began, r.nodes, size
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("names", nargs="*", default=list(NAMES))
+    parser.add_argument("--steps", type=int, default=SearchSettings().penalty_steps)
+    parser.add_argument("--root-steps", type=int, default=SearchSettings().root_steps)
+    parser.add_argument("--cutoff", type=int, default=2)
+    parser.add_argument("--no-record", action="store_true", help="skip the recorded runs")
+    args = parser.parse_args()
+    settings = SearchSettings(
+        bound="penalties",
+        cutoff=args.cutoff,
+        penalty_steps=args.steps,
+        root_steps=args.root_steps,
+    )
+    tmp = Path(tempfile.mkdtemp())
+    warm = load_instance(instance_path("burma14"))
+    run_search(warm, settings, make_start(warm, "nn", "none"))  # compile / load the cache
+    print(
+        f"## penalties bound: cutoff {args.cutoff}, {args.steps} steps a node, "
+        f"{args.root_steps} at the root, start nn+2opt+oropt\n"
+    )
+    print(
+        "| instance | optimum | found | nodes | prototype nodes | ratio | search s "
+        "| recorded s | ratio | B/node | decisions s | B/node |"
+    )
+    print("|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
+    total = 0.0
+    for name in args.names:
+        instance = load_instance(instance_path(name))
+        start = make_start(instance, "nn", "2opt+oropt")
+        assert start is not None
+        began = time.perf_counter()
+        r = run_search(instance, settings, start)
+        plain = time.perf_counter() - began
+        total += plain
+        proto = PROTOTYPE_NODES.get(name)
+        ratio = f"{r.nodes / proto:.2f}" if proto else "-"
+        found = "yes" if r.length == TSPLIB_OPTIMUM[name] and r.status == "complete" else "NO"
+        cells = [
+            name,
+            f"{TSPLIB_OPTIMUM[name]}",
+            f"{found}",
+            f"{r.nodes:,}",
+            f"{proto:,}" if proto else "-",
+            ratio,
+            f"{plain:.2f}",
+        ]
+        if args.no_record:
+            cells += ["-"] * 5
+        else:
+            rec, nodes, size = recorded(instance, settings, start, tmp / "p.trail")
+            slim = SearchSettings(**{**settings.__dict__, "record": "decisions"})
+            dec, _, dsize = recorded(instance, slim, start, tmp / "d.trail")
+            cells += [
+                f"{rec:.2f}",
+                f"{rec / plain:.2f}",
+                f"{size / nodes:.1f}",
+                f"{dec:.2f}",
+                f"{dsize / nodes:.1f}",
+            ]
+        print("| " + " | ".join(cells) + " |", flush=True)
+    print(f"\ntotal search seconds (not recorded): {total:.2f}")
+
+
+if __name__ == "__main__":
+    main()

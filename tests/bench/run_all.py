@@ -1,0 +1,136 @@
+"""Run every benchmark script in tests/bench, then print one summary table with date and machine.
+
+Run: python tests/bench/run_all.py [--only NAME ...] [--list]
+
+Convention (see tests/bench/README.md): a benchmark is a file named `bench_*.py` with a
+`main()` that prints its own tables. `main()` may return summary rows, a list of dicts with
+the keys `measure`, `value` and (optionally) `target`, all text; they go into the summary
+table. Each script runs once, in its own Python process (so one script's memory peaks and
+compiled code never colour another's), and its output is passed through as it is printed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime
+import json
+import os
+import platform
+import subprocess
+import sys
+import time
+from pathlib import Path
+from typing import Any
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parents[1]
+#: The line a script's driver prints last, followed by its summary rows as JSON.
+MARKER = "@@bench-summary@@ "
+
+#: Runs one script's main() (not its __main__ block) and prints the rows it returned.
+_DRIVER = f"""
+import json, runpy, sys
+module = runpy.run_path(sys.argv[1], run_name="bench")
+rows = module["main"]()
+sys.stdout.flush()
+print({MARKER!r} + json.dumps(rows if isinstance(rows, list) else []), flush=True)
+"""
+
+
+def discover() -> list[Path]:
+    """Every benchmark script, by name."""
+    return sorted(HERE.glob("bench_*.py"))
+
+
+def machine() -> str:
+    """One line naming the machine and the versions measured on."""
+    cpu = platform.processor() or platform.machine()
+    try:
+        for line in Path("/proc/cpuinfo").read_text().splitlines():
+            if line.startswith("model name"):
+                cpu = line.split(":", 1)[1].strip()
+                break
+    except OSError:
+        pass
+    import numpy
+
+    return (
+        f"{cpu}, {os.cpu_count()} cores, {platform.system()} {platform.release()}; "
+        f"Python {platform.python_version()}, numpy {numpy.__version__}"
+    )
+
+
+def run_script(script: Path) -> tuple[int, float, list[dict[str, Any]]]:
+    """Run one script in its own process, passing its output through.
+
+    Returns:
+        (exit status, seconds taken, the summary rows it returned).
+    """
+    began = time.perf_counter()
+    env = {
+        **os.environ,
+        "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")]),
+    }
+    proc = subprocess.Popen(
+        [sys.executable, "-c", _DRIVER, str(script)],
+        stdout=subprocess.PIPE,
+        text=True,
+        cwd=ROOT,
+        env=env,
+    )
+    rows: list[dict[str, Any]] = []
+    assert proc.stdout is not None
+    for line in proc.stdout:
+        if line.startswith(MARKER):
+            rows = [r for r in json.loads(line[len(MARKER) :]) if isinstance(r, dict)]
+        else:
+            sys.stdout.write(line)
+            sys.stdout.flush()
+    status = proc.wait()
+    return status, time.perf_counter() - began, rows
+
+
+def summary_table(results: list[tuple[str, int, float, list[dict[str, Any]]]]) -> list[str]:
+    """The summary as Markdown lines: one row per measure, and one per script without any."""
+    lines = ["| benchmark | measure | value | target |", "|---|---|---:|---|"]
+    for name, status, seconds, rows in results:
+        if status != 0:
+            lines.append(f"| {name} | failed (exit {status}) after {seconds:.0f} s | — | |")
+            continue
+        if not rows:
+            lines.append(f"| {name} | (tables above; ran {seconds:.0f} s) | — | |")
+        for row in rows:
+            lines.append(
+                f"| {name} | {row.get('measure', '')} | {row.get('value', '')} "
+                f"| {row.get('target', '')} |"
+            )
+    return lines
+
+
+def main() -> int:
+    """Run the chosen benchmarks and print the summary; exit 1 if any script failed."""
+    parser = argparse.ArgumentParser(description="Run every tests/bench/bench_*.py once.")
+    parser.add_argument("--only", nargs="+", metavar="NAME", help="run only these (bench_x or x)")
+    parser.add_argument("--list", action="store_true", help="list the scripts and stop")
+    args = parser.parse_args()
+    scripts = discover()
+    if args.only:
+        wanted = {n.removesuffix(".py").removeprefix("bench_") for n in args.only}
+        scripts = [s for s in scripts if s.stem.removeprefix("bench_") in wanted]
+    if args.list:
+        print("\n".join(s.name for s in scripts))
+        return 0
+    started = datetime.datetime.now().astimezone()
+    results = []
+    for script in scripts:
+        print(f"\n## {script.name}\n", flush=True)
+        status, seconds, rows = run_script(script)
+        results.append((script.stem, status, seconds, rows))
+    print(f"\n## summary: {started:%Y-%m-%d %H:%M %Z}\n")
+    print(f"machine: {machine()}\n")
+    print("\n".join(summary_table(results)))
+    return 0 if all(status == 0 for _, status, _, _ in results) else 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,218 @@
+"""JSON Lines from other people's solvers: liberal where the meaning is clear, clear messages
+where it is not, the typed fast path agreeing with the field-by-field checks, and the
+Recorder's own bound."""
+
+from __future__ import annotations
+
+import copy
+import json
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+from tests.foreign_traces import jsonl_lines, solve_to_trail
+from tests.reference import instance_path
+from tracer.analysis import TreeIndex, recheck
+from tracer.base import InputError, Trail
+from tracer.formats.load import load_instance
+from tracer.search.driver import SearchSettings
+from tracer.trails import _jsonl_typed
+from tracer.trails.jsonl import read_jsonl
+from tracer.trails.recorder import Recorder
+
+MATRIX = [[0, 2, 9, 4], [2, 0, 6, 3], [9, 6, 0, 5], [4, 3, 5, 0]]
+HEADER: dict[str, Any] = {
+    "kind": "header",
+    "instance": {"name": "square", "matrix": MATRIX},
+    "solver": {"bound": "tree+links", "cutoff": 0, "start": None},
+}
+#: Root, then the path 0 1 3 2 (a complete path: its tour is 2 + 3 + 5 + 9 = 19).
+NODES: list[dict[str, Any]] = [
+    {"kind": "node", "id": 1, "parent": None, "city": 0, "partial": 0, "tree": 8,
+     "link_in": [1, 2], "link_out": [1, 2], "decision": "expand"},
+    {"kind": "node", "id": 2, "parent": 1, "city": 1, "partial": 2, "tree": 5,
+     "link_in": [3, 3], "link_out": [3, 4], "decision": "expand"},
+    {"kind": "node", "id": 3, "parent": 2, "city": 3, "partial": 5, "tree": 0,
+     "link_in": [2, 5], "link_out": [2, 9], "decision": "expand"},
+    {"kind": "node", "id": 4, "parent": 3, "city": 2, "partial": 10, "length": 19,
+     "decision": "tour_better"},
+    {"kind": "best", "id": 4, "length": 19, "tour": [0, 1, 3, 2]},
+]  # fmt: skip
+
+
+def write(path: Path, lines: list[Any]) -> Path:
+    """Lines as JSON (dicts) or verbatim (str)."""
+    path.write_text("".join((x if isinstance(x, str) else json.dumps(x)) + "\n" for x in lines))
+    return path
+
+
+def trace(tmp_path: Path, **changes: Any) -> list[dict[str, Any]]:
+    """The small trace, with `header__key=value` or `node3__key=value` changes."""
+    lines = [copy.deepcopy(HEADER), *copy.deepcopy(NODES), {"kind": "end", "status": "complete"}]
+    for spec, value in changes.items():
+        where, _, key = spec.partition("__")
+        target = lines[0] if where == "header" else lines[int(where.removeprefix("node")) + 1]
+        if "." in key:
+            outer, inner = key.split(".")
+            target = target[outer]
+            key = inner
+        if value is None:
+            target.pop(key, None)
+        else:
+            target[key] = value
+    return lines
+
+
+def checked(trail: Trail) -> int:
+    """The number of wrong records the re-check finds."""
+    return recheck(trail, TreeIndex(trail.columns, trail.best)).wrong
+
+
+def test_absent_length_at_a_complete_path_is_computed(tmp_path: Path) -> None:
+    """A complete path without `length` gets partial + closing edge; the trace checks."""
+    trail = read_jsonl(write(tmp_path / "a.jsonl", trace(tmp_path, node3__length=None)))
+    assert trail.columns["link_out"][3] == MATRIX[2][0]  # the closing edge 2 -> 0
+    assert int(trail.columns["partial"][3] + trail.columns["link_out"][3]) == 19
+    assert checked(trail) == 0
+
+
+def test_given_length_is_still_checked(tmp_path: Path) -> None:
+    """A wrong `length` at a complete path is still reported by the re-check."""
+    trail = read_jsonl(write(tmp_path / "w.jsonl", trace(tmp_path, node3__length=18)))
+    assert checked(trail) >= 1
+
+
+def test_complete_path_pruned_by_the_solver_imports(tmp_path: Path) -> None:
+    """A complete path the solver pruned by its own bound imports (the re-check judges it)."""
+    lines = trace(tmp_path, node3__decision="prune", node3__length=None)
+    lines.pop(5)  # no best line: the pruned tour never became the incumbent
+    trail = read_jsonl(write(tmp_path / "p.jsonl", lines))
+    assert trail.count == 4 and int(trail.columns["decision"][3]) == 1
+
+
+@pytest.mark.parametrize(
+    ("key", "value", "kept"),
+    [
+        ("header__solver.start", 3, "3"),
+        ("header__solver.start", True, "true"),
+        ("header__solver.start", 2.5, "2.5"),
+        ("header__instance.name", 17, "17"),
+        ("header__solver.engine", "my-solver 2.1", "jsonl: my-solver 2.1"),
+    ],
+)
+def test_informational_fields_take_any_scalar(
+    tmp_path: Path, key: str, value: Any, kept: str
+) -> None:
+    """solver.start, solver.engine and the instance name accept any scalar, kept as text."""
+    trail = read_jsonl(write(tmp_path / "i.jsonl", trace(tmp_path, **{key: value})))
+    got = {
+        "header__solver.start": trail.header.solver.start,
+        "header__instance.name": trail.header.instance.name,
+        "header__solver.engine": trail.header.solver.engine,
+    }[key]
+    assert got == kept
+
+
+def test_informational_field_that_is_not_a_scalar_is_refused(tmp_path: Path) -> None:
+    """A list where text is expected is still refused, naming the field."""
+    path = write(tmp_path / "l.jsonl", trace(tmp_path, **{"header__solver.start": [1]}))
+    with pytest.raises(InputError, match="'solver.start'") as caught:
+        read_jsonl(path)
+    assert caught.value.line == 1
+
+
+def test_missing_solver_says_missing(tmp_path: Path) -> None:
+    """A header without `solver` says it is missing, not that it found null."""
+    path = write(tmp_path / "s.jsonl", trace(tmp_path, header__solver=None))
+    with pytest.raises(InputError, match=r"'solver': is missing") as caught:
+        read_jsonl(path)
+    assert "null" not in str(caught.value)
+
+
+def test_link_written_length_first_says_the_order(tmp_path: Path) -> None:
+    """A link written [length, city] names the city out of range and the [city, length] order."""
+    path = write(tmp_path / "k.jsonl", trace(tmp_path, node1__link_in=[9, 3]))
+    with pytest.raises(InputError) as caught:
+        read_jsonl(path)
+    message = str(caught.value)
+    assert caught.value.line == 3 and "'link_in'" in message
+    assert "out of range 0..3" in message and "[city, length]" in message
+
+
+def test_unknown_keys_are_ignored_on_both_paths(tmp_path: Path) -> None:
+    """Keys the format does not define are ignored."""
+    lines = trace(tmp_path)
+    for line in lines:
+        line["note"] = {"anything": [1, 2]}
+    assert read_jsonl(write(tmp_path / "u.jsonl", lines)).count == 4
+
+
+def test_only_the_solvers_own_bound_gets_structure_and_decision_checks(tmp_path: Path) -> None:
+    """Nodes with only `bound` (a bound of the solver's own): the trace checks, a bad
+    decision is found."""
+    lines = trace(tmp_path, **{"header__solver.bound": "my-bound"})
+    bounds = [12, 13, 15]
+    for line, bound in zip(lines[1:4], bounds, strict=True):
+        for key in ("tree", "link_in", "link_out"):
+            line.pop(key)
+        line["bound"] = bound
+    trail = read_jsonl(write(tmp_path / "b.jsonl", lines))
+    assert trail.header.solver.bound == "my-bound"
+    assert trail.columns["bound"][:3].tolist() == bounds
+    report = recheck(trail, TreeIndex(trail.columns, trail.best))
+    assert "structure" in report.kinds_checked and "decision" in report.kinds_checked
+    assert "tree" not in report.kinds_checked
+    assert report.wrong == 0
+    lines[4]["decision"] = "tour"  # it improved the infinite incumbent: tour_better is right
+    lines.pop(5)
+    wrong = read_jsonl(write(tmp_path / "bw.jsonl", lines))
+    assert checked(wrong) >= 1
+
+
+def test_typed_path_and_field_checks_read_the_same(tmp_path: Path, monkeypatch) -> None:
+    """A real search's trace (TSPLIB gr17), with blank lines, reads the same on both paths."""
+    instance = load_instance(instance_path("gr17"))
+    source = solve_to_trail(instance, tmp_path / "g.trail", SearchSettings(max_nodes=40_000))
+    lines = list(jsonl_lines(source))
+    lines.insert(7, "")
+    lines.insert(20_000, "   ")
+    path = write(tmp_path / "g.jsonl", lines)
+    fast = read_jsonl(path)
+    monkeypatch.setattr(_jsonl_typed, "node_batch", lambda *args: None)
+    from tracer.trails import jsonl
+
+    monkeypatch.setattr(jsonl, "node_batch", lambda *args: None)
+    slow = read_jsonl(path)
+    for name, column in source.columns.items():
+        assert np.array_equal(fast.columns[name], column), name
+        assert np.array_equal(slow.columns[name], column), name
+    assert fast.best == slow.best == source.best
+
+
+def test_typed_path_reports_the_same_line_and_field(tmp_path: Path) -> None:
+    """A bad value deep in a long trace is named by line and field, as line by line."""
+    instance = load_instance(instance_path("gr17"))
+    source = solve_to_trail(instance, tmp_path / "g.trail", SearchSettings(max_nodes=30_000))
+    lines = list(jsonl_lines(source))
+    bad = json.loads(lines[25_000])
+    bad["city"] = 17
+    lines[25_000] = json.dumps(bad)
+    with pytest.raises(InputError) as caught:
+        read_jsonl(write(tmp_path / "bad.jsonl", lines))
+    assert caught.value.line == 25_001 and "'city'" in str(caught.value)
+
+
+def test_recorder_accepts_the_solvers_own_bound(tmp_path: Path) -> None:
+    """Recorder.node(bound=...) keeps the bound column; a trace of its own bound checks."""
+    with Recorder(tmp_path / "r.trail", MATRIX, bound="my-bound") as rec:
+        root = rec.node(None, 0, 0, decision="expand", bound=12)
+        one = rec.node(root, 1, 2, decision="expand", bound=13)
+        three = rec.node(one, 3, 5, decision="expand", bound=15)
+        last = rec.node(three, 2, 10, decision="tour_better")
+        rec.best(19, [0, 1, 3, 2], node=last)
+    trail = rec.close()
+    assert trail.columns["bound"][:3].tolist() == [12, 13, 15]
+    assert int(trail.columns["partial"][3] + trail.columns["link_out"][3]) == 19
+    assert checked(trail) == 0

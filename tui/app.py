@@ -1,0 +1,828 @@
+"""The viewer: a trail's nodes as a virtual list, with panels that follow the cursor.
+
+The screen is a function of one `ViewerModel`. Keys become actions on it (every binding has
+a description and an id, so a key file can remap it, and every action is also a command in
+the palette). Work that can take long runs in declared thread workers that reach the UI only
+through small messages: the re-check (chunk by chunk, marks appear as results arrive), the
+exact-completion oracle, the why search, runs to a stop condition, and following a live
+trail. Everything shown from the file (names, notes, notices) goes through `Text`, so it is
+never read as markup.
+"""
+
+from __future__ import annotations
+
+import threading
+from collections.abc import Iterable
+from dataclasses import dataclass
+from functools import partial
+from pathlib import Path
+from typing import Any, ClassVar
+
+import numpy as np
+from numpy.typing import NDArray
+from rich.text import Text
+from textual import work
+from textual.app import App, ComposeResult, SystemCommand
+from textual.binding import Binding, BindingType
+from textual.containers import Horizontal, Vertical
+from textual.message import Message
+from textual.screen import Screen
+from textual.timer import Timer
+from textual.widgets import Footer, ProgressBar, Static
+from textual.worker import Worker, WorkerState, get_current_worker
+
+from tracer.analysis import (
+    ORACLE_MAX_CITIES,
+    FilterError,
+    StopCondition,
+    TreeIndex,
+    WhyReport,
+    best_completions,
+    completion_table,
+    explain,
+    format_length,
+    recheck,
+)
+from tracer.base import InputError, PrunetrailError, Trail
+from tracer.trails import CorruptTrailError, TrailFollower, open_trail
+from tui.bookmarks import Bookmark, clean_note, load_bookmarks, save_bookmarks, sidecar_path
+from tui.bound_panel import BoundPanel
+from tui.city_map import CityMap
+from tui.dialogs import (
+    BookmarksScreen,
+    FilterDialog,
+    GoToDialog,
+    HelpScreen,
+    NoteDialog,
+    StopDialog,
+)
+from tui.keys import keymap_path, load_keymap
+from tui.model import ViewerModel
+from tui.node_list import NodeList, NodeListHeader
+from tui.outline import BranchOutline
+from tui.stats_screen import StatsScreen
+from tui.walkthrough import walkthrough
+from tui.why_screen import WhyScreen
+
+#: Play speeds, in steps per second.
+SPEEDS = (1, 2, 5, 10, 20, 50, 100)
+#: The oracle keeps one float64 per node: above this many nodes it is left out.
+ORACLE_MAX_NODES = 1 << 22
+#: Seconds between polls of a live trail.
+FOLLOW_INTERVAL = 0.5
+
+
+@dataclass(frozen=True)
+class Opened:
+    """A trail as the viewer opens it: what was readable, and what to tell the user."""
+
+    trail: Trail
+    notice: str | None
+    follower: TrailFollower | None
+
+
+def open_for_viewing(path: str | Path, *, follow: bool = True) -> Opened:
+    """Open a trail for the viewer: a cut or corrupt file opens with what was readable.
+
+    A trail file without an end frame is followed live (when `follow`).
+
+    Raises:
+        InputError: nothing readable (not a trail, or cut before its header).
+    """
+    p = Path(path)
+    try:
+        trail = open_trail(p)
+    except CorruptTrailError as exc:
+        if exc.partial is None:
+            raise
+        return Opened(exc.partial, f"{exc}; showing the {exc.partial.count} nodes before it", None)
+    if trail.end is None and follow and p.suffix.lower() != ".jsonl":
+        follower = TrailFollower(p)
+        try:
+            follower.poll()
+        except CorruptTrailError as exc:
+            follower.close()
+            return Opened(trail, str(exc), None)
+        live = follower.trail
+        if live is not None:
+            return Opened(live, trail.notice, follower)
+        follower.close()
+    return Opened(trail, trail.notice, None)
+
+
+# -- messages from workers ---------------------------------------------------------------
+
+
+class RecheckProgress(Message):
+    """The re-check finished the nodes below `checked_to`; `wrong` are the wrong ones."""
+
+    def __init__(self, wrong: NDArray[np.int64], checked_to: int, total: int) -> None:
+        super().__init__()
+        self.wrong = wrong
+        self.checked_to = checked_to
+        self.total = total
+
+
+class TrailGrew(Message):
+    """A live trail has more nodes (or its end): the new snapshot and its index."""
+
+    def __init__(self, trail: Trail, index: TreeIndex) -> None:
+        super().__init__()
+        self.trail = trail
+        self.index = index
+
+
+class Notice(Message):
+    """Something a worker wants the user to read (a live trail stopped, say)."""
+
+    def __init__(self, reason: str) -> None:
+        super().__init__()
+        self.reason = reason
+
+
+class RunFinished(Message):
+    """A run to the stop list ended at `node` (None: no node matches that way)."""
+
+    def __init__(self, node: int | None, direction: int, what: str) -> None:
+        super().__init__()
+        self.node = node
+        self.direction = direction
+        self.what = what
+
+
+class OracleReady(Message):
+    """The exact completion of every node is known."""
+
+    def __init__(self, table: Any, completions: NDArray[np.float64]) -> None:
+        super().__init__()
+        self.table = table
+        self.completions = completions
+
+
+class WhyReady(Message):
+    """The why report for the optimal tour is ready."""
+
+    def __init__(self, report: WhyReport, show: bool) -> None:
+        super().__init__()
+        self.report = report
+        self.show = show
+
+
+# -- the app -----------------------------------------------------------------------------
+
+
+def _binding(keys: str, action: str, description: str, *, show: bool = False) -> Binding:
+    return Binding(keys, action, description, show=show, id=action)
+
+
+class PrunetrailApp(App[None]):
+    """The trail viewer.
+
+    Args:
+        path_or_trail: a trail or JSON Lines file, or a `Trail` already read.
+        at: node id to start on.
+        prefix: path prefix (e.g. "0 5 2") to filter to and start at.
+        filter: filter text to apply at start.
+        follow: follow a trail without an end frame as it grows.
+        background: run the re-check and the oracle in the background.
+    """
+
+    CSS_PATH = "viewer.tcss"
+    TITLE = "prunetrail"
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        _binding("q,ctrl+q", "quit", "Quit", show=True),
+        _binding("down,j", "next", "Next node"),
+        _binding("up,k", "previous", "Previous node"),
+        _binding("pagedown", "page_down", "Page down"),
+        _binding("pageup", "page_up", "Page up"),
+        _binding("home,g", "first", "First row"),
+        _binding("end,G", "last", "Last row"),
+        _binding("left,h", "parent", "Parent", show=True),
+        _binding("right,l", "first_child", "First child", show=True),
+        _binding("s", "next_sibling", "Next sibling", show=True),
+        _binding("S", "previous_sibling", "Previous sibling"),
+        _binding("i", "goto", "Go to id", show=True),
+        _binding("r", "run_forward", "Run to stop", show=True),
+        _binding("R", "run_backward", "Run back to stop"),
+        _binding("u", "stops", "Stop list", show=True),
+        _binding("space", "play", "Play/pause", show=True),
+        _binding("plus,equals_sign", "faster", "Faster"),
+        _binding("minus", "slower", "Slower"),
+        _binding("f", "filter", "Filter", show=True),
+        _binding("F", "clear_filter", "Clear filter"),
+        _binding("c", "why_cut", "Go to the cut", show=True),
+        _binding("w", "why", "Why screen"),
+        _binding("t", "stats", "Stats screen"),
+        _binding("a", "bookmark", "Bookmark"),
+        _binding("b", "bookmarks", "Bookmarks"),
+        _binding("e", "export_svg", "Export SVG"),
+        _binding("E", "export_walkthrough", "Export walkthrough"),
+        _binding("1", "toggle_bound", "Bound panel"),
+        _binding("2", "toggle_map", "Map"),
+        _binding("3", "toggle_outline", "Outline"),
+        _binding("question_mark", "help", "Help", show=True),
+    ]
+
+    def __init__(
+        self,
+        path_or_trail: str | Path | Trail,
+        at: int | None = None,
+        prefix: str | None = None,
+        filter: str | None = None,
+        *,
+        follow: bool = True,
+        background: bool = True,
+    ) -> None:
+        super().__init__()
+        self._follower: TrailFollower | None = None
+        self._notice: str | None = None
+        if isinstance(path_or_trail, Trail):
+            trail = path_or_trail
+            self._notice = trail.notice
+        else:
+            opened = open_for_viewing(path_or_trail, follow=follow)
+            trail, self._notice, self._follower = opened.trail, opened.notice, opened.follower
+        self.model = ViewerModel(trail, live=self._follower is not None)
+        self._background = background
+        self._stop_follow = threading.Event()
+        self.stops = StopCondition(prune=True)
+        self._speed = 3
+        self._timer: Timer | None = None
+        self._play_target: int | None = None
+        self._why_report: WhyReport | None = None
+        self._table: Any = None
+        self._start = self._starting_view(at, prefix, filter)
+        self._bookmark_file = sidecar_path(trail.path)
+        self.bookmarks, bookmark_notice = load_bookmarks(self._bookmark_file, trail.count)
+        self._notices = [n for n in (self._notice, bookmark_notice) if n]
+        self._keymap_file = keymap_path()
+        keymap, problems = load_keymap(self._keymap_file, self._binding_ids())
+        self._notices += problems
+        self._user_keys = keymap
+        if keymap:
+            self.set_keymap(keymap)
+
+    def _starting_view(self, at: int | None, prefix: str | None, text: str | None) -> int:
+        """Apply --prefix and --filter; the node to start on.
+
+        Raises:
+            InputError: a bad filter, prefix or node id (one line, for the CLI).
+        """
+        model = self.model
+        clauses = [f"under {prefix}"] if prefix else []
+        clauses += [text] if text else []
+        try:
+            model.apply_filter(" and ".join(clauses))
+        except FilterError as exc:
+            raise InputError(model.trail.path, f"bad filter: {exc}") from None
+        if at is not None and not 0 <= at < model.count:
+            raise InputError(
+                model.trail.path, f"--at {at}: the trail has nodes 0..{model.count - 1}"
+            )
+        if at is not None:
+            return at
+        return model.rows.id_at(0) if len(model.rows) else 0
+
+    # -- layout --------------------------------------------------------------------------
+
+    def compose(self) -> ComposeResult:
+        yield Static(id="top")
+        with Horizontal(id="body"):
+            with Vertical(id="list-pane"):
+                yield NodeListHeader(id="list-header")
+                yield NodeList(self.model, id="nodes")
+            with Vertical(id="side"):
+                yield BoundPanel(id="bound")
+                yield CityMap(id="map")
+                yield BranchOutline(id="outline", classes="hidden")
+        with Horizontal(id="work"):
+            yield Static(id="work-label")
+            yield ProgressBar(id="work-bar", show_eta=False)
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one("#nodes", NodeList).focus()
+        for notice in self._notices:
+            self.notify(notice, title="Notice", severity="warning", timeout=12, markup=False)
+        self.goto(self._start)
+        self._update_top()
+        if self.model.count == 0:
+            self.notify("the trail holds no nodes yet", markup=False)
+        if self._background:
+            self._recheck()
+            if self._oracle_fits():
+                self._oracle()
+        else:
+            self._hide_work()
+        if self._follower is not None:
+            self._follow(self._follower)
+
+    def on_resize(self) -> None:
+        self._update_header()
+
+    def _update_header(self) -> None:
+        nodes = self.query_one("#nodes", NodeList)
+        self.query_one("#list-header", NodeListHeader).update(nodes.header_text())
+
+    # -- the cursor and what follows it --------------------------------------------------
+
+    @property
+    def cursor(self) -> int:
+        """The node under the cursor."""
+        return self.model.cursor
+
+    def goto(self, node: int | None) -> None:
+        """Put the cursor on `node` (no-op for None or an id outside the trail)."""
+        model = self.model
+        if node is None or not 0 <= node < model.count:
+            return
+        model.cursor = node
+        nodes = self.query_one("#nodes", NodeList)
+        nodes.cursor_row = model.rows.row_of(node)
+        self._show_panels()
+        self._update_top()
+
+    def _show_panels(self) -> None:
+        node = self.model.cursor
+        if not self.model.count:
+            return
+        for selector in ("#bound", "#map", "#outline"):
+            panel = self.query_one(selector)
+            if panel.display:
+                panel.show(self.model, node)  # type: ignore[attr-defined]
+
+    def _update_top(self) -> None:
+        model = self.model
+        trail = model.trail
+        counts = model.counts()
+        d = counts.decisions
+        integral = trail.header.instance.integral
+        top = Text(no_wrap=True, overflow="ellipsis")
+        top.append(trail.header.instance.name, style="bold")
+        top.append(f"  n={trail.n}  ")
+        status = model.status
+        top.append(status, style="bold green" if model.complete else "bold yellow")
+        top.append(
+            f"  {counts.nodes:,} nodes (expand {d['expand']:,}, prune {d['prune']:,}, "
+            f"skip {d['skip']:,}, tours {d['tour'] + d['tour_better']:,})"
+        )
+        top.append(f"  incumbent {format_length(model.incumbent(), integral)}")
+        if model.wrong_ids.size:
+            top.append(f"  ✗ {model.wrong_ids.size:,} wrong", style="bold red")
+        top.append("\n")
+        top.append(f"node {model.cursor}  ", style="bold")
+        if model.filter.empty:
+            top.append("filter: none", style="dim")
+        else:
+            top.append("filter: ")
+            top.append(model.filter.describe(), style="italic")
+            top.append(f"  keeps {len(model.rows):,}")
+        top.append(f"   stop at: {self.stops.describe() or 'nothing'}", style="dim")
+        if self._timer is not None:
+            top.append(f"   ▶ {SPEEDS[self._speed]}/s", style="bold cyan")
+        else:
+            top.append(f"   speed {SPEEDS[self._speed]}/s", style="dim")
+        self.query_one("#top", Static).update(top)
+
+    def on_node_list_picked(self, message: NodeList.Picked) -> None:
+        self.goto(message.node)
+
+    def on_branch_outline_picked(self, message: BranchOutline.Picked) -> None:
+        self.goto(message.node)
+
+    # -- moves ---------------------------------------------------------------------------
+
+    def action_next(self) -> None:
+        """Next node in visit order (among the rows kept)."""
+        self.goto(self.model.step(self.cursor, 1))
+
+    def action_previous(self) -> None:
+        """Previous node in visit order."""
+        self.goto(self.model.step(self.cursor, -1))
+
+    def _page(self) -> int:
+        return max(1, self.query_one("#nodes", NodeList).size.height - 1)
+
+    def action_page_down(self) -> None:
+        """A page of rows down."""
+        self.goto(self.model.step(self.cursor, self._page()))
+
+    def action_page_up(self) -> None:
+        """A page of rows up."""
+        self.goto(self.model.step(self.cursor, -self._page()))
+
+    def action_first(self) -> None:
+        """The first row."""
+        if len(self.model.rows):
+            self.goto(self.model.rows.id_at(0))
+
+    def action_last(self) -> None:
+        """The last row."""
+        rows = self.model.rows
+        if len(rows):
+            self.goto(rows.id_at(len(rows) - 1))
+
+    def _move(self, node: int | None, what: str) -> None:
+        if node is None:
+            self.notify(f"node {self.cursor} has no {what}", timeout=3)
+        self.goto(node)
+
+    def action_parent(self) -> None:
+        """The cursor node's parent."""
+        self._move(self.model.parent(self.cursor), "parent")
+
+    def action_first_child(self) -> None:
+        """The cursor node's first child."""
+        self._move(self.model.first_child(self.cursor), "child")
+
+    def action_next_sibling(self) -> None:
+        """The next child of the same parent."""
+        self._move(self.model.next_sibling(self.cursor), "next sibling")
+
+    def action_previous_sibling(self) -> None:
+        """The previous child of the same parent."""
+        self._move(self.model.previous_sibling(self.cursor), "previous sibling")
+
+    def action_goto(self) -> None:
+        """Ask for a node id and go there."""
+        if self.model.count:
+            self.push_screen(GoToDialog(self.model.count), self.goto)
+
+    # -- runs and play -------------------------------------------------------------------
+
+    def action_stops(self) -> None:
+        """Edit the stop list."""
+
+        def chosen(condition: StopCondition | None) -> None:
+            if condition is not None:
+                self.stops = condition
+                self._play_target = None
+                self._update_top()
+
+        self.push_screen(StopDialog(self.stops), chosen)
+
+    def action_run_forward(self) -> None:
+        """Run forward to the next node where the stop list holds."""
+        self._run(1)
+
+    def action_run_backward(self) -> None:
+        """Run backward to the previous node where the stop list holds."""
+        self._run(-1)
+
+    def _run(self, direction: int) -> None:
+        if self.stops.empty:
+            self.action_stops()
+            return
+        self._search(self.stops, self.cursor, direction)
+
+    @work(thread=True, exclusive=True, group="run", exit_on_error=False)
+    def _search(self, condition: StopCondition, start: int, direction: int) -> None:
+        found = self.model.run_until(condition, start, direction)
+        if not get_current_worker().is_cancelled:
+            self.post_message(RunFinished(found, direction, condition.describe()))
+
+    def on_run_finished(self, message: RunFinished) -> None:
+        if message.node is None:
+            way = "ahead" if message.direction > 0 else "behind"
+            self.notify(f"no node {way} where: {message.what}", timeout=4, markup=False)
+            return
+        self.goto(message.node)
+
+    def action_play(self) -> None:
+        """Play forward at the chosen speed, pausing where the stop list holds."""
+        if self._timer is not None:
+            self._pause()
+            return
+        self._play_target = None
+        if not self.stops.empty:
+            self._play_target = self.model.run_until(self.stops, self.cursor, 1)
+        self._timer = self.set_interval(1 / SPEEDS[self._speed], self._tick)
+        self._update_top()
+
+    def _pause(self) -> None:
+        if self._timer is not None:
+            self._timer.stop()
+            self._timer = None
+        self._update_top()
+
+    def _tick(self) -> None:
+        node = self.model.step(self.cursor, 1)
+        if node is None:
+            self._pause()
+            return
+        self.goto(node)
+        if self._play_target is not None and node >= self._play_target:
+            self._pause()
+            self.notify(f"paused: node {node} meets the stop list", timeout=3)
+
+    def _set_speed(self, index: int) -> None:
+        self._speed = max(0, min(index, len(SPEEDS) - 1))
+        if self._timer is not None:
+            self._timer.stop()
+            self._timer = self.set_interval(1 / SPEEDS[self._speed], self._tick)
+        self._update_top()
+
+    def action_faster(self) -> None:
+        """Play faster."""
+        self._set_speed(self._speed + 1)
+
+    def action_slower(self) -> None:
+        """Play slower."""
+        self._set_speed(self._speed - 1)
+
+    # -- filter --------------------------------------------------------------------------
+
+    def action_filter(self) -> None:
+        """Edit the filter."""
+        self.push_screen(FilterDialog(self.model.filter.text), self.apply_filter)
+
+    def action_clear_filter(self) -> None:
+        """Show every node again."""
+        self.apply_filter("")
+
+    def apply_filter(self, text: str | None) -> None:
+        """Filter the rows by `text` (None: leave them as they are)."""
+        if text is None:
+            return
+        try:
+            self.model.apply_filter(text)
+        except FilterError as exc:
+            self.notify(str(exc), title="Filter", severity="error", markup=False)
+            return
+        self._rows_changed()
+        if len(self.model.rows) and not self.model.rows.holds(self.cursor):
+            row = min(self.model.rows.row_of(self.cursor), len(self.model.rows) - 1)
+            self.goto(self.model.rows.id_at(row))
+        else:
+            self.goto(self.cursor)
+
+    def _rows_changed(self) -> None:
+        nodes = self.query_one("#nodes", NodeList)
+        nodes.reload()
+        self._play_target = None
+
+    # -- background work -----------------------------------------------------------------
+
+    @work(thread=True, exclusive=True, group="recheck", exit_on_error=False)
+    def _recheck(self) -> None:
+        worker = get_current_worker()
+        model = self.model
+        trail, index = model.trail, model.index
+        total = index.count
+        for lo, hi in model.recheck_ranges(model.checked):
+            if worker.is_cancelled:
+                return
+            report = recheck(trail, index, start=lo, stop=hi, first=0)
+            self.post_message(RecheckProgress(report.wrong_ids, hi, total))
+
+    def on_recheck_progress(self, message: RecheckProgress) -> None:
+        model = self.model
+        filtered_on_wrong = model.filter.wrong
+        model.add_wrong(message.wrong, message.checked_to)
+        nodes = self.query_one("#nodes", NodeList)
+        if filtered_on_wrong and len(message.wrong):
+            nodes.reload()
+            nodes.cursor_row = model.rows.row_of(model.cursor)
+        elif len(message.wrong):
+            nodes.marks_changed()
+            self._show_panels()
+        bar = self.query_one("#work-bar", ProgressBar)
+        bar.update(total=max(message.total, 1), progress=message.checked_to)
+        label = self.query_one("#work-label", Static)
+        wrong = model.wrong_ids.size
+        done = message.checked_to >= message.total
+        label.update(
+            Text(
+                f"re-check {'done' if done else 'running'}: {message.checked_to:,} of "
+                f"{message.total:,} nodes, {wrong:,} wrong",
+                style="red" if wrong else "green" if done else "",
+            )
+        )
+        if len(message.wrong):
+            self._update_top()
+
+    def _hide_work(self) -> None:
+        self.query_one("#work-bar", ProgressBar).display = False
+
+    def _oracle_fits(self) -> bool:
+        return (
+            self.model.trail.n <= ORACLE_MAX_CITIES
+            and self.model.count <= ORACLE_MAX_NODES
+            and not self.model.live
+        )
+
+    @work(thread=True, exclusive=True, group="oracle", exit_on_error=False)
+    def _oracle(self) -> None:
+        model = self.model
+        try:
+            table = completion_table(model.trail.header.instance)
+        except PrunetrailError as exc:
+            self.post_message(Notice(f"no exact completions: {exc}"))
+            return
+        completions = best_completions(model.trail, model.index, table)
+        self.post_message(OracleReady(table, completions))
+
+    def on_oracle_ready(self, message: OracleReady) -> None:
+        self._table = message.table
+        self.model.completions = message.completions
+        self._show_panels()
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        if event.state == WorkerState.ERROR and event.worker.error is not None:
+            what = event.worker.group
+            self.notify(
+                f"{what} stopped: {event.worker.error}", severity="error", timeout=8, markup=False
+            )
+
+    # -- live follow ---------------------------------------------------------------------
+
+    @work(thread=True, exclusive=True, group="follow", exit_on_error=False)
+    def _follow(self, follower: TrailFollower) -> None:
+        try:
+            while not self._stop_follow.wait(FOLLOW_INTERVAL):
+                if get_current_worker().is_cancelled:
+                    return
+                try:
+                    _, added, best = follower.poll()
+                except CorruptTrailError as exc:
+                    self.post_message(Notice(str(exc)))
+                    return
+                trail = follower.trail
+                if trail is None or not (added or best or trail.end is not None):
+                    continue
+                self.post_message(TrailGrew(trail, TreeIndex(trail.columns, trail.best)))
+                if trail.end is not None:
+                    return
+        finally:
+            follower.close()
+
+    def on_trail_grew(self, message: TrailGrew) -> None:
+        model = self.model
+        at_end = model.count == 0 or model.cursor >= model.count - 1
+        model.replace_trail(message.trail, message.index)
+        self._rows_changed()
+        self.goto(model.count - 1 if at_end else model.cursor)
+        if model.trail.end is not None:
+            self.notify(f"the run ended: {model.status}", timeout=5, markup=False)
+        if self._background:
+            self._recheck()
+
+    def on_notice(self, message: Notice) -> None:
+        self.notify(message.reason, severity="warning", timeout=10, markup=False)
+        if self.model.live and self._follower is not None:
+            self.model.live = False
+            self._update_top()
+
+    def on_unmount(self) -> None:
+        self._stop_follow.set()
+
+    # -- why, stats ----------------------------------------------------------------------
+
+    def action_why_cut(self) -> None:
+        """Go to the node where the optimal tour's branch was cut."""
+        self._why(show=False)
+
+    def action_why(self) -> None:
+        """Show the why report for the optimal tour."""
+        self._why(show=True)
+
+    def _why(self, show: bool) -> None:
+        if self._why_report is not None:
+            self.post_message(WhyReady(self._why_report, show))
+            return
+        if self.model.trail.n > ORACLE_MAX_CITIES:
+            self.notify(
+                f"why needs the optimal tour: only for up to {ORACLE_MAX_CITIES} cities",
+                timeout=5,
+            )
+            return
+        self.notify("looking for where the optimal tour's branch was cut…", timeout=3)
+        self._explain(show)
+
+    @work(thread=True, exclusive=True, group="why", exit_on_error=False)
+    def _explain(self, show: bool) -> None:
+        model = self.model
+        table = self._table
+        if table is None:
+            table = completion_table(model.trail.header.instance)
+            self._table = table
+        report = explain(
+            model.trail, model.index, tour=None, table=table, completions=model.completions
+        )
+        self.post_message(WhyReady(report, show))
+
+    def on_why_ready(self, message: WhyReady) -> None:
+        self._why_report = message.report
+        cut = message.report.cut_node
+        if message.show:
+            title = self.model.trail.header.instance.name
+            screen = WhyScreen(message.report, self.model.trail, self.model.index, title=title)
+            self.push_screen(screen, self.goto)
+        elif cut is None:
+            self.notify(Text(message.report.explanation).plain, timeout=6, markup=False)
+        else:
+            self.goto(int(cut))
+
+    def action_stats(self) -> None:
+        """The per-depth statistics screen."""
+        self.push_screen(StatsScreen.from_model(self.model))
+
+    # -- bookmarks -----------------------------------------------------------------------
+
+    def action_bookmark(self) -> None:
+        """Bookmark the cursor node with a note (editing the note if it is bookmarked)."""
+        node = self.cursor
+        current = next((b.note for b in self.bookmarks if b.node == node), "")
+
+        def noted(note: str | None) -> None:
+            if note is None:
+                return
+            kept = [b for b in self.bookmarks if b.node != node]
+            self.bookmarks = sorted([*kept, Bookmark(node, clean_note(note))], key=lambda b: b.node)
+            try:
+                save_bookmarks(self._bookmark_file, self.bookmarks)
+            except OSError as exc:
+                self.notify(f"cannot save bookmarks: {exc}", severity="error", markup=False)
+                return
+            self.notify(f"bookmarked node {node}", timeout=2)
+
+        self.push_screen(NoteDialog(node, current), noted)
+
+    def action_bookmarks(self) -> None:
+        """The bookmarks screen (enter goes to the node)."""
+        self.push_screen(BookmarksScreen(self.bookmarks, str(self._bookmark_file)), self.goto)
+
+    # -- exports -------------------------------------------------------------------------
+
+    def _export_name(self, suffix: str) -> Path:
+        stem = Path(self.model.trail.path).stem or "trail"
+        return Path.cwd() / f"{stem}-node{self.cursor}{suffix}"
+
+    def action_export_svg(self) -> None:
+        """Save the screen as an SVG file in the working folder."""
+        target = self._export_name(".svg")
+        try:
+            self.save_screenshot(target.name, str(target.parent))
+        except OSError as exc:
+            self.notify(f"cannot write {target}: {exc}", severity="error", markup=False)
+            return
+        self.notify(f"saved {target}", timeout=4, markup=False)
+
+    def action_export_walkthrough(self) -> None:
+        """Save the path from the root to the cursor as a Markdown walkthrough."""
+        target = self._export_name(".md")
+        model = self.model
+        text = walkthrough(model.trail, model.index, self.cursor, model.completions)
+        try:
+            target.write_text(text, encoding="utf-8")
+        except OSError as exc:
+            self.notify(f"cannot write {target}: {exc}", severity="error", markup=False)
+            return
+        self.notify(f"saved {target}", timeout=4, markup=False)
+
+    # -- panels, help, palette -----------------------------------------------------------
+
+    def _toggle(self, selector: str) -> None:
+        panel = self.query_one(selector)
+        panel.display = not panel.display
+        side = self.query_one("#side")
+        side.display = any(child.display for child in side.children)
+        self._show_panels()
+
+    def action_toggle_bound(self) -> None:
+        """Show or hide the bound panel."""
+        self._toggle("#bound")
+
+    def action_toggle_map(self) -> None:
+        """Show or hide the map."""
+        self._toggle("#map")
+
+    def action_toggle_outline(self) -> None:
+        """Show or hide the branch outline."""
+        self._toggle("#outline")
+
+    def _binding_ids(self) -> list[str]:
+        return [b.id for b in self.BINDINGS if isinstance(b, Binding) and b.id]
+
+    def key_table(self) -> list[tuple[str, str, str]]:
+        """(keys, description, binding id) of every binding, with the keymap applied."""
+        keymap = self._user_keys
+        rows: list[tuple[str, str, str]] = []
+        for b in self.BINDINGS:
+            if isinstance(b, Binding) and b.id:
+                rows.append((keymap.get(b.id, b.key), b.description, b.id))
+        return rows
+
+    def action_help(self) -> None:
+        """Every key, the filter language and the stop list."""
+        self.push_screen(HelpScreen(self.key_table(), str(self._keymap_file)))
+
+    def get_system_commands(self, screen: Screen[Any]) -> Iterable[SystemCommand]:
+        yield from super().get_system_commands(screen)
+        for keys, description, binding_id in self.key_table():
+            if binding_id in ("quit", "help"):
+                continue
+            yield SystemCommand(
+                description, f"key: {keys}", partial(self.run_action, binding_id), discover=True
+            )
