@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import contextlib
 import html
+import io
 import os
 import re
 import shlex
@@ -81,9 +82,7 @@ def screenshot_target(command: str) -> str | None:
 
 def generated(text: str, name: str, body: str) -> str:
     """`text` with the generated block `name` replaced by `body`."""
-    pattern = re.compile(
-        rf"(<!-- generated: {name} [^\n]*-->\n).*?(<!-- end generated -->)", re.S
-    )
+    pattern = re.compile(rf"(<!-- generated: {name} [^\n]*-->\n).*?(<!-- end generated -->)", re.S)
     if not pattern.search(text):
         raise ValueError(f"README has no generated block {name!r}")
     return pattern.sub(lambda m: m.group(1) + body + m.group(2), text, count=1)
@@ -140,8 +139,9 @@ def walkthrough_excerpt(workdir: Path) -> str:
     from tui.walkthrough import walkthrough
 
     trail_path = workdir / "walkthrough.trail"
-    with contextlib.redirect_stdout(None):  # type: ignore[type-var]
-        status = main([*WALK_SOLVE[:1], str(ROOT / WALK_SOLVE[1]), *WALK_SOLVE[2:], "-o", str(trail_path)])
+    verb, instance, *options = WALK_SOLVE
+    with contextlib.redirect_stdout(io.StringIO()):
+        status = main([verb, str(ROOT / instance), *options, "-o", str(trail_path)])
     assert status == 0
     trail = open_trail(trail_path)
     index = TreeIndex(trail.columns, trail.best)

@@ -7,6 +7,7 @@ reuse a trail they did not make.
 from __future__ import annotations
 
 import os
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -41,6 +42,14 @@ def test_every_scenario_file_has_a_demo() -> None:
     }
     sources = {s.source for s in demo.SCENARIOS}
     assert sources == shipped - {"boiler_round.tsp"}  # its demo is the broken solver's trace
+
+
+def test_demo_titles_quote_the_measured_numbers() -> None:
+    """Every number a demo's one-line title quotes is one scenarios/README.md states."""
+    stories = (ROOT / "scenarios" / "README.md").read_text()
+    quoted = [n for s in demo.SCENARIOS for n in re.findall(r"\d[\d,]*\d|\d", s.title)]
+    assert len(quoted) >= 8
+    assert [n for n in quoted if n not in stories] == []
 
 
 def test_list_names_every_scenario(capsys: pytest.CaptureFixture[str]) -> None:
@@ -83,7 +92,8 @@ def test_broken_demo_says_the_check_failed_and_why(capsys: pytest.CaptureFixture
     assert main(["demo", "--headless"]) == 0
     shown = capsys.readouterr().out
     assert "54 of 64 records are wrong" in shown
-    assert "partial" in shown
+    assert "culprit: partial" in shown
+    assert re.search(r"to look at it: prunetrail view \S+boiler-\w+\.trail --at 20\n", shown)
 
 
 def test_demo_without_a_terminal_is_headless(own_cache: Path) -> None:

@@ -3,6 +3,7 @@ memory stays small, or solved and re-checked against an independent optimum."""
 
 from __future__ import annotations
 
+import itertools
 import json
 import subprocess
 import sys
@@ -16,6 +17,7 @@ import numpy as np
 import pytest
 
 from tests.oracles import brute_force
+from tracer.analysis import TreeIndex, recheck
 from tracer.base import InputError, PrunetrailError
 from tracer.cli import main
 from tracer.formats.cities_csv import parse_cities_csv
@@ -152,6 +154,106 @@ def test_ten_million_cities_in_a_trail_header(small_trail: Path, tmp_path: Path)
     bad = tmp_path / "wide.trail"
     bad.write_bytes(msgpack.packb(header, use_bin_type=True))
     refused(lambda: read_trail(bad), "instance.n")
+
+
+# -- bit flips ------------------------------------------------------------------------------
+
+
+def _answer(trail: Any) -> tuple[Any, ...]:
+    """Everything a reader of the trail relies on: not the informational seconds or names,
+    nor the end frame's decision counts (the reader compares those it is given with the
+    nodes, so a damaged count is a notice; a damaged key only leaves them out), nor the
+    bound's name: a damaged name changes which kinds are checked (`check --json` lists
+    them in `kinds_checked`), not what was recorded; nor when an update from outside the
+    tree (node -1, a start tour) took effect, which matters only through the decisions it
+    judges, and those the re-check checks (an update at a node must take effect right
+    after it: the reader refuses any other `at`)."""
+    end = trail.end
+    solver = trail.header.solver
+    # an end frame without its length or tour: a reader falls back on the last update
+    last_length = trail.best[-1].length if trail.best else None
+    last_tour = list(trail.best[-1].tour) if trail.best else []
+    return (
+        {name: column.tobytes() for name, column in trail.columns.items()},
+        [(b.node, b.length, b.tour) for b in trail.best],
+        None
+        if end is None
+        else (
+            end.status,
+            end.length if end.length is not None else last_length,
+            list(end.tour) if end.tour is not None else last_tour,
+        ),
+        trail.header.instance.matrix.tobytes(),
+        (solver.cutoff, solver.visit_order, solver.record_under),
+    )
+
+
+def _frame_offsets(data: bytes) -> list[int]:
+    unpacker = msgpack.Unpacker(raw=False, max_buffer_size=len(data))
+    unpacker.feed(data)
+    offsets = []
+    while True:
+        offsets.append(unpacker.tell())
+        try:
+            unpacker.unpack()
+        except msgpack.OutOfData:
+            return offsets
+
+
+def _flip_every_frame(path: Path, tmp_path: Path, per_frame: int, bits: tuple[int, ...]) -> int:
+    """Flip bits in every frame of `path`; each flip is refused at an offset, or reads the
+    same answer, or reads with a notice, or has a record the re-check marks wrong."""
+    data = path.read_bytes()
+    original = _answer(read_trail(path))
+    offsets = _frame_offsets(data)
+    assert len(offsets) > 4  # header, node block(s), best frames, end
+    rng = np.random.default_rng(11)
+    flipped = tmp_path / "flipped.trail"
+    tried = 0
+    for lo, hi in itertools.pairwise(offsets):
+        positions = {lo, hi - 1, *rng.integers(lo, hi, per_frame).tolist()}
+        for pos in sorted(positions):
+            for bit in bits:
+                damaged = bytearray(data)
+                damaged[pos] ^= 1 << bit
+                flipped.write_bytes(bytes(damaged))
+                tried += 1
+                try:
+                    trail = read_trail(flipped)
+                except InputError as exc:
+                    assert exc.offset is not None and exc.offset >= 0, (pos, str(exc))
+                    continue
+                if _answer(trail) == original or trail.notice is not None:
+                    continue
+                report = recheck(trail, TreeIndex(trail.columns, trail.best), first=1)
+                assert report.wrong > 0, f"flip at byte {pos} bit {bit}: a silent new answer"
+    return tried
+
+
+def test_bit_flips_in_every_frame_are_never_silent(tmp_path: Path) -> None:
+    """Bit flips across every frame of a small trail: refused at a byte offset, or the same
+    answer, or a notice, or a record marked wrong — never a silently different answer."""
+    trail = tmp_path / "small.trail"
+    assert main(["solve", str(ORCHARD), "-o", str(trail), "--cutoff", "3", "--json"]) == 0
+    assert _flip_every_frame(trail, tmp_path, per_frame=14, bits=(0, 7)) > 100
+
+
+@pytest.mark.thorough
+@pytest.mark.parametrize("codec", ["zstd", "none"])
+def test_bit_flips_many_per_frame(tmp_path: Path, codec: str) -> None:
+    """The same with many flips a frame, for compressed and raw node columns."""
+    from tracer.base.frames import EndInfo
+    from tracer.search.driver import SearchSettings, make_start, run_search, trail_header
+    from tracer.trails.writer import TrailWriter
+
+    instance = parse_instance(ORCHARD.read_text(), str(ORCHARD))
+    settings = SearchSettings(cutoff=3)
+    start = make_start(instance, "nn", "none")
+    path = tmp_path / f"{codec}.trail"
+    writer = TrailWriter(path, trail_header(instance, settings, start, "t"), codec=codec)
+    r = run_search(instance, settings, start, sink=writer)
+    writer.close(EndInfo(r.status, r.nodes, r.recorded, r.decisions, r.seconds, r.length, r.tour))
+    assert _flip_every_frame(path, tmp_path, per_frame=60, bits=(0, 3, 7)) > 1000
 
 
 # -- instance and tour text ------------------------------------------------------------------

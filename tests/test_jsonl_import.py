@@ -152,7 +152,7 @@ def test_hand_made_file_reads_as_expected(tmp_path: Path) -> None:
     trail = read_jsonl(base_file(tmp_path))
     cols = trail.columns
     assert trail.count == 5
-    assert [c.name for c in trail.header.columns][-1] == "decision"
+    assert [c.name for c in trail.header.columns][-3:] == ["decision", "source_id", "source_line"]
     assert cols["city"].dtype == np.uint8 and cols["partial"].dtype == np.int32
     assert cols["city"].tolist() == [0, 1, 3, 2, 3]
     assert cols["depth"].tolist() == [0, 1, 2, 3, 1]
@@ -368,9 +368,10 @@ def test_open_trail_dispatches_on_the_suffix(tmp_path: Path) -> None:
 def test_blank_lines_and_unknown_keys_are_ignored(tmp_path: Path) -> None:
     """Blank lines are skipped and keys outside the format are ignored."""
     lines: list[Any] = [BASE[0], "", "   "] + [{**line, "note": [1, {"x": 2}]} for line in BASE[1:]]
-    same_trails(
-        read_jsonl(write_lines(tmp_path / "x.jsonl", lines)), read_jsonl(base_file(tmp_path))
-    )
+    spaced = read_jsonl(write_lines(tmp_path / "x.jsonl", lines))
+    plain = read_jsonl(base_file(tmp_path))
+    assert (spaced.columns.pop("source_line") == plain.columns.pop("source_line") + 2).all()
+    same_trails(spaced, plain)
 
 
 # -- malformed traces ------------------------------------------------------------------------

@@ -18,7 +18,7 @@ from tracer.analysis import TreeIndex, recheck
 from tracer.base import InputError, Trail
 from tracer.formats.load import load_instance
 from tracer.search.driver import SearchSettings
-from tracer.trails import _jsonl_typed
+from tracer.trails import jsonl
 from tracer.trails.jsonl import read_jsonl
 from tracer.trails.recorder import Recorder
 
@@ -118,7 +118,7 @@ def test_informational_fields_take_any_scalar(
 def test_informational_field_that_is_not_a_scalar_is_refused(tmp_path: Path) -> None:
     """A list where text is expected is still refused, naming the field."""
     path = write(tmp_path / "l.jsonl", trace(tmp_path, **{"header__solver.start": [1]}))
-    with pytest.raises(InputError, match="'solver.start'") as caught:
+    with pytest.raises(InputError, match=r"'solver\.start'") as caught:
         read_jsonl(path)
     assert caught.value.line == 1
 
@@ -180,10 +180,7 @@ def test_typed_path_and_field_checks_read_the_same(tmp_path: Path, monkeypatch) 
     lines.insert(20_000, "   ")
     path = write(tmp_path / "g.jsonl", lines)
     fast = read_jsonl(path)
-    monkeypatch.setattr(_jsonl_typed, "node_batch", lambda *args: None)
-    from tracer.trails import jsonl
-
-    monkeypatch.setattr(jsonl, "node_batch", lambda *args: None)
+    monkeypatch.setattr(jsonl, "node_batch", lambda *args: None)  # every batch line by line
     slow = read_jsonl(path)
     for name, column in source.columns.items():
         assert np.array_equal(fast.columns[name], column), name
@@ -216,3 +213,42 @@ def test_recorder_accepts_the_solvers_own_bound(tmp_path: Path) -> None:
     assert trail.columns["bound"][:3].tolist() == [12, 13, 15]
     assert int(trail.columns["partial"][3] + trail.columns["link_out"][3]) == 19
     assert checked(trail) == 0
+
+
+def test_spec_recorder_example_runs_and_checks(tmp_path: Path, monkeypatch, capsys) -> None:
+    """The Recorder example in TRAIL_FORMAT.md runs, and its trail checks with its own bound."""
+    import re
+
+    spec = (Path(__file__).resolve().parents[1] / "tracer" / "TRAIL_FORMAT.md").read_text()
+    blocks = re.findall(r"<!-- example: recorder -->\n```python\n(.*?)```", spec, re.DOTALL)
+    assert len(blocks) == 1
+    monkeypatch.chdir(tmp_path)
+    namespace: dict[str, Any] = {"__name__": "recorder_example"}
+    exec(compile(blocks[0], "TRAIL_FORMAT.md", "exec"), namespace)  # our own documentation
+    trail = namespace["trail"]
+    assert (tmp_path / "rectangle.trail").exists() and trail.end.status == "complete"
+    assert trail.best[-1].length == 14  # the rectangle's perimeter, 3 + 4 + 3 + 4
+    assert trail.header.solver.bound == "partial+return" and "bound" in trail.columns
+    assert checked(trail) == 0
+    assert "best tour 14" in capsys.readouterr().out
+
+
+def test_findings_name_the_solvers_id_and_line(tmp_path: Path, capsys) -> None:
+    """check on an imported trace names a wrong node by the solver's own id and its line."""
+    from tracer.cli import main
+
+    lines = trace(tmp_path)
+    ids = [500, 493, 486, 479]  # ids the solver chose, nothing like pre-order
+    for i, line in enumerate(lines[1:5]):
+        line["id"] = ids[i]
+        line["parent"] = None if i == 0 else ids[i - 1]
+    lines[5]["id"] = ids[3]
+    lines[3]["partial"] = 6  # wrong: 2 + 3 = 5 (line 4 of the file, the solver's node 486)
+    path = write(tmp_path / "f.jsonl", lines)
+    assert main(["check", str(path), "--json"]) == 1
+    got = json.loads(capsys.readouterr().out)
+    first = got["first"][0]
+    assert first["id"] == 2 and first["source_id"] == 486 and first["source_line"] == 4
+    assert main(["check", str(path)]) == 1
+    text = capsys.readouterr().out
+    assert "486" in text and "line" in text

@@ -5,8 +5,8 @@ script, opens the app's websocket itself (the stream must carry the node list's 
 then loads the page in headless Chromium through the DevTools protocol, waiting for the
 page to mark the app's first bytes, and takes a screenshot. Chromium comes from the
 system's packages (`apt-get install chromium`); without it that part is skipped, saying so.
-The browser test is `thorough` (CI's second step runs it); set PRUNETRAIL_KEEP_SCREENSHOT to
-a file name to keep its PNG.
+The tests that start the server are `thorough` (CI's second step runs them); set
+PRUNETRAIL_KEEP_SCREENSHOT to a file name to keep the browser's PNG.
 """
 
 from __future__ import annotations
@@ -32,6 +32,7 @@ import aiohttp
 import pytest
 
 from tracer.cli import main as tracer_main
+from tui.cli import main as view_main
 from tui.serve import LOOPBACK, child_command, is_loopback, public_url
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -110,6 +111,23 @@ def test_loopback_and_wildcard_addresses() -> None:
     assert public_url("::1", 9000) == "http://[::1]:9000"
 
 
+def test_serving_a_missing_trail_fails_in_one_line(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """A trail that cannot be read stops `--serve` before it listens: exit 2, one line."""
+    assert view_main(["view", str(tmp_path / "none.trail"), "--serve"]) == 2
+    message = capsys.readouterr().err.strip()
+    assert "none.trail" in message and "\n" not in message
+
+
+def test_serve_and_screenshot_do_not_go_together(capsys: pytest.CaptureFixture[str]) -> None:
+    """--serve with --screenshot is refused with exit 2."""
+    trail = ROOT / "scenarios" / "boiler_round_broken.jsonl"
+    assert view_main(["view", str(trail), "--serve", "--screenshot", "x.svg"]) == 2
+    assert "--screenshot" in capsys.readouterr().err
+
+
+@pytest.mark.thorough  # a server process and a viewer process: about 10 s
 def test_serve_prints_the_loopback_address(served: tuple[str, str]) -> None:
     """The first line printed names the loopback address to open."""
     first, url = served
@@ -137,6 +155,7 @@ async def _page_and_session(url: str) -> tuple[str, int, str]:
     return html, script, text
 
 
+@pytest.mark.thorough  # a server process and a viewer process: about 10 s
 def test_page_script_and_app_session(served: tuple[str, str]) -> None:
     """The page and its script load, and the app's websocket streams the node list."""
     _, url = served

@@ -95,6 +95,7 @@ def test_plan_interleaves_repeats_in_alternating_rounds(cells) -> None:
     assert all(j.repeat == r for r, jobs_ in enumerate(rounds) for j in jobs_)
 
 
+@pytest.mark.thorough
 def test_process_pool_gives_the_same_counts(cells) -> None:
     """Two worker processes give the same rows (nodes, evaluations, length) as one."""
     jobs = plan(cells[1:], [0, 3], 1, SearchSettings())
@@ -140,11 +141,11 @@ def test_unreachable_cluster_is_one_clear_error(cells, capsys, monkeypatch) -> N
 
 
 def test_out_writes_csv_and_json(tmp_path: Path, capsys) -> None:
-    """--out: a CSV line per cell with every field, and JSON with rows and recommendations;
-    --json prints the same object."""
+    """--out with a pool of 2 workers: a CSV line per cell with every field, nodes as a
+    direct search finds them, and JSON with rows and recommendations; --json prints it."""
     prefix = tmp_path / "tune"
     argv = ["sweep", str(instance_path("burma14")), "--random", "9:1:2", "--cutoffs", "0-2"]
-    status = main([*argv, "--repeat", "1", "--workers", "1", "--out", str(prefix), "--json"])
+    status = main([*argv, "--repeat", "1", "--workers", "2", "--out", str(prefix), "--json"])
     assert status == 0
     printed = json.loads(capsys.readouterr().out)
     with open(f"{prefix}.csv", newline="") as f:
@@ -155,6 +156,11 @@ def test_out_writes_csv_and_json(tmp_path: Path, capsys) -> None:
     for key in ("instance", "cutoff", "nodes", "bound_evaluations", "seconds", "length"):
         assert key in saved["rows"][0]
     assert [int(r["nodes"]) for r in lines] == [r["nodes"] for r in saved["rows"]]
+    burma = load_instance(instance_path("burma14"))
+    start = make_start(burma, "nn", "2opt+oropt")
+    for line in lines[:3]:
+        direct = run_search(burma, SearchSettings(cutoff=int(line["cutoff"])), start)
+        assert (line["instance"], int(line["nodes"])) == ("burma14", direct.nodes)
     per_instance = saved["recommended"]["per_instance"]
     assert set(per_instance) == {"burma14", "uniform9-s2-0", "clustered9-s2-0"}
     assert saved["recommended"]["overall"]["cutoff"] in (0, 1, 2)

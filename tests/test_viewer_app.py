@@ -530,3 +530,20 @@ async def test_why_jumps_to_the_cut_and_shows_the_report(tmp_path):
         await pilot.pause()
         assert not isinstance(app.screen, WhyScreen)
         assert app.cursor == expected.cut_node
+
+
+@pytest.mark.asyncio
+async def test_a_trail_with_no_nodes_yet_takes_every_key(faulty, tmp_path):
+    """A header-only trail (a run that has just started) opens and ignores moves calmly."""
+    source = open_trail(faulty)
+    path = tmp_path / "empty.trail"
+    writer = TrailWriter(path, source.header, threaded=False)
+    app = PrunetrailApp(path, background=False, follow=False)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.press(*"jkhlsSgG", "pagedown", "r", "R", "a", "E", "space", "space")
+        await pilot.press("c")
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        assert app.model.count == 0
+        assert "0 nodes" in _plain_top(app)
+    writer.close(source.end)

@@ -95,14 +95,18 @@ class PanelModel:
 
     trail: Trail
     index: TreeIndex
-    wrong_ids: Any = None
+    wrong_ids: Any = dataclasses.field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     completions: Any = None
+
+    def is_wrong(self, node: int) -> bool:
+        """Whether the re-check found `node` wrong."""
+        return node in set(self.wrong_ids.tolist())
 
 
 def model_of(trail: Trail, checked: bool = True, oracle: bool = False) -> PanelModel:
     """A panel model of a trail, with its re-check marks and (optionally) the oracle's values."""
     index = TreeIndex(trail.columns, trail.best)
-    wrong = recheck(trail, index).wrong_ids if checked else None
+    wrong = recheck(trail, index).wrong_ids if checked else np.zeros(0, dtype=np.int64)
     completions = None
     if oracle:
         completions = best_completions(trail, index, completion_table(trail.header.instance))
@@ -161,16 +165,22 @@ def test_remainder_links_are_the_cheapest() -> None:
     assert remainder(matrix, list(range(9))).link_in is None
 
 
-def test_penalised_remainder_equals_the_recorded_parts() -> None:
-    """Under the penalties bound, the tree and links recomputed from the recorded π are the
-    engine's recorded penalised parts, node by node."""
+@pytest.fixture(scope="module")
+def penalised() -> PanelModel:
+    """A penalties-bound trail of the nine-city instance, from no start tour."""
     instance = planted_instance()
     settings = SearchSettings(bound=PENALTIES, cutoff=1)
     sink = Collect()
     run_search(instance, settings, start=None, sink=sink)
-    columns = sink.columns()
-    trail = Trail("p.trail", trail_header(instance, settings, None, "prunetrail"), columns)
-    index = TreeIndex(trail.columns, trail.best)
+    header = trail_header(instance, settings, None, "prunetrail")
+    return model_of(Trail("p.trail", header, sink.columns(), sink.best), checked=False)
+
+
+def test_penalised_remainder_equals_the_recorded_parts(penalised: PanelModel) -> None:
+    """Under the penalties bound, the tree and links recomputed from the recorded π are the
+    engine's recorded penalised parts, node by node."""
+    trail, index = penalised.trail, penalised.index
+    instance, columns = trail.header.instance, trail.columns
     bounded = np.flatnonzero(~is_absent(columns[TREE]))
     assert len(bounded) > 5
     for node in bounded:
@@ -391,6 +401,20 @@ def test_verdict_names_a_wrong_decision(planted: PanelModel) -> None:
     assert f"the rule calls for {view.expected}, not {view.decision}" in words
 
 
+@pytest.mark.asyncio
+async def test_bound_panel_never_breaks_a_number(clean: PanelModel) -> None:
+    """Wrapping the sentence keeps each grouped number ("12 345 678") on one line."""
+    words = "Pruned: the bound 12 345 678 reaches the best tour so far, 12 345 600."
+    view = dataclasses.replace(bound_view(clean.trail, clean.index, 1), sentence=words)
+    panel = BoundPanel()
+    async with PanelApp(panel).run_test(size=(26, 30)) as pilot:
+        panel.show_values(view)
+        await pilot.pause()
+        lines = _text(panel, 30).splitlines()
+    assert any("12 345 678" in line for line in lines)
+    assert any("12 345 600" in line for line in lines)
+
+
 # -- the map -----------------------------------------------------------------------------
 
 
@@ -427,6 +451,8 @@ async def test_city_map_draws_the_path_and_toggles_labels(clean: PanelModel) -> 
     assert "8" not in plain.replace("⣿", "") or "8" in labelled
     assert all(str(c) in labelled for c in range(9))
     assert "approximate" not in plain
+    tree = format_length(float(clean.trail.columns[TREE][node]))
+    assert plain.splitlines()[0].startswith(f"map · 5 left · tree {tree}")
 
 
 def test_degrees_count_tree_and_link_ends(clean: PanelModel) -> None:
@@ -449,8 +475,27 @@ async def test_city_map_colours_cities_by_degree(clean: PanelModel) -> None:
         city_map.focus()
         await pilot.press("d")
         await pilot.pause()
-        assert city_map.by_degree
+        assert city_map.colouring == "degree"
         assert "degree 1" in city_map.render_line(19).text
+        await pilot.press("d")
+        await pilot.pause()
+        assert city_map.colouring == "plain", "no penalties: the key skips that colouring"
+
+
+@pytest.mark.asyncio
+async def test_city_map_colours_cities_by_penalty(penalised: PanelModel) -> None:
+    """On a penalties trail `d` reaches the penalty colouring, with its legend."""
+    node = int(np.flatnonzero(~is_absent(penalised.trail.columns[TREE]))[-1])
+    city_map = CityMap()
+    async with PanelApp(city_map).run_test(size=(70, 20)) as pilot:
+        city_map.show(penalised, node)
+        await pilot.pause()
+        city_map.focus()
+        await pilot.press("d", "d")
+        await pilot.pause()
+        assert city_map.colouring == "penalty"
+        legend = city_map.render_line(19).text
+    assert "π > 0" in legend and "tree (π)" in legend
 
 
 @pytest.mark.asyncio
@@ -615,3 +660,37 @@ async def test_why_screen_without_a_cut(clean: PanelModel) -> None:
         await pilot.press("escape")
         await pilot.pause()
     assert app.results == [None]
+
+
+def _rows_under(node: Any) -> int:
+    """How many rows a tree node holds below it."""
+    return sum(1 + _rows_under(child) for child in node.children)
+
+
+@pytest.mark.asyncio
+async def test_outline_folds_back_when_it_grows(clean: PanelModel) -> None:
+    """Revealing node after node never keeps more than the row cap plus one path's pages."""
+    outline = BranchOutline(page=4, max_rows=30)
+    depth = int(clean.trail.columns["depth"].max())
+    async with PanelApp(outline).run_test(size=(60, 30)) as pilot:
+        for node in range(0, clean.trail.count, 3):
+            outline.show(clean, node)
+        await pilot.pause()
+        assert _rows_under(outline.root) <= 30 + depth * 5
+        assert outline.cursor_node is not None and outline.cursor_node.data is not None
+
+
+@pytest.mark.asyncio
+async def test_outline_marks_wrong_records(planted: PanelModel) -> None:
+    """Rows of records the re-check found wrong carry a mark, also once it finds them later."""
+    node = int(planted.wrong_ids[0])
+    unchecked = dataclasses.replace(planted, wrong_ids=np.zeros(0, dtype=np.int64))
+    outline = BranchOutline()
+    async with PanelApp(outline).run_test(size=(60, 30)) as pilot:
+        outline.show(unchecked, node)
+        await pilot.pause()
+        assert outline.cursor_node is not None
+        assert not str(outline.cursor_node.label).startswith("✗")
+        outline.show(planted, node)
+        await pilot.pause()
+        assert str(outline.cursor_node.label).startswith("✗")

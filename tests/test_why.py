@@ -151,6 +151,7 @@ def _guessing_solver(path: Path, instance: Instance) -> tuple[int, list[int]]:
     ]
     incumbent = [float("inf")]
     cut = [-1]
+    count = itertools.count()
 
     def guess(path_: list[int]) -> int:
         here, left, total = path_[-1], set(range(n)) - set(path_), 0
@@ -161,7 +162,7 @@ def _guessing_solver(path: Path, instance: Instance) -> tuple[int, list[int]]:
         return total + d[here, 0]
 
     def visit(path_: list[int], parent: int | None, partial: int) -> None:
-        ident = sum(1 for line in lines if line["kind"] == "node")
+        ident = next(count)
         node = {"kind": "node", "id": ident, "parent": parent, "city": path_[-1]}
         node["partial"] = partial
         if len(path_) == n:
@@ -226,7 +227,7 @@ def test_cli_json_and_remainder(tmp_path: Path, capsys: pytest.CaptureFixture[st
     sub = load_instance(left)
     trail = open_trail(trail_path)
     index = TreeIndex(trail.columns, trail.best)
-    expected, cities = remainder_instance(trail, index, data["cut_node"])
+    _, cities = remainder_instance(trail, index, data["cut_node"])
     assert sub.n == len(cities) == instance.n - len(data["path"]) + 2
     assert np.array_equal(sub.matrix, instance.matrix[np.ix_(cities, cities)])
     table = completion_table(instance)

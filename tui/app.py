@@ -44,7 +44,7 @@ from tracer.analysis import (
     recheck,
 )
 from tracer.base import InputError, PrunetrailError, Trail
-from tracer.trails import CorruptTrailError, TrailFollower, open_trail
+from tracer.trails import CorruptTrailError, Follower, follow_trail, open_trail
 from tui.bookmarks import Bookmark, clean_note, load_bookmarks, save_bookmarks, sidecar_path
 from tui.bound_panel import BoundPanel
 from tui.city_map import CityMap
@@ -78,13 +78,13 @@ class Opened:
 
     trail: Trail
     notice: str | None
-    follower: TrailFollower | None
+    follower: Follower | None
 
 
 def open_for_viewing(path: str | Path, *, follow: bool = True) -> Opened:
     """Open a trail for the viewer: a cut or corrupt file opens with what was readable.
 
-    A trail file without an end frame is followed live (when `follow`).
+    A trail (or JSON Lines trace) without an end is followed live (when `follow`).
 
     Raises:
         InputError: nothing readable (not a trail, or cut before its header).
@@ -96,11 +96,11 @@ def open_for_viewing(path: str | Path, *, follow: bool = True) -> Opened:
         if exc.partial is None:
             raise
         return Opened(exc.partial, f"{exc}; showing the {exc.partial.count} nodes before it", None)
-    if trail.end is None and follow and p.suffix.lower() != ".jsonl":
-        follower = TrailFollower(p)
+    if trail.end is None and follow:
+        follower = follow_trail(p)
         try:
             follower.poll()
-        except CorruptTrailError as exc:
+        except InputError as exc:
             follower.close()
             return Opened(trail, str(exc), None)
         live = follower.trail
@@ -187,7 +187,7 @@ class PrunetrailApp(App[None]):
         background: run the re-check and the oracle in the background.
     """
 
-    CSS_PATH = "viewer.tcss"
+    CSS_PATH = Path(__file__).with_name("viewer.tcss")
     TITLE = "prunetrail"
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -235,7 +235,7 @@ class PrunetrailApp(App[None]):
         background: bool = True,
     ) -> None:
         super().__init__()
-        self._follower: TrailFollower | None = None
+        self._follower: Follower | None = None
         self._notice: str | None = None
         if isinstance(path_or_trail, Trail):
             trail = path_or_trail
@@ -290,8 +290,9 @@ class PrunetrailApp(App[None]):
         yield Static(id="top")
         with Horizontal(id="body"):
             with Vertical(id="list-pane"):
-                yield NodeListHeader(id="list-header")
-                yield NodeList(self.model, id="nodes")
+                header = NodeListHeader(id="list-header")
+                yield header
+                yield NodeList(self.model, header, id="nodes")
             with Vertical(id="side"):
                 yield BoundPanel(id="bound")
                 yield CityMap(id="map")
@@ -318,13 +319,6 @@ class PrunetrailApp(App[None]):
         if self._follower is not None:
             self._follow(self._follower)
 
-    def on_resize(self) -> None:
-        self._update_header()
-
-    def _update_header(self) -> None:
-        nodes = self.query_one("#nodes", NodeList)
-        self.query_one("#list-header", NodeListHeader).update(nodes.header_text())
-
     # -- the cursor and what follows it --------------------------------------------------
 
     @property
@@ -346,6 +340,8 @@ class PrunetrailApp(App[None]):
     def _show_panels(self) -> None:
         node = self.model.cursor
         if not self.model.count:
+            return
+        if not self.query_one("#side").display:
             return
         for selector in ("#bound", "#map", "#outline"):
             panel = self.query_one(selector)
@@ -383,7 +379,7 @@ class PrunetrailApp(App[None]):
             top.append(f"   ▶ {SPEEDS[self._speed]}/s", style="bold cyan")
         else:
             top.append(f"   speed {SPEEDS[self._speed]}/s", style="dim")
-        self.query_one("#top", Static).update(top)
+        self.query_one("#top", Static).update(top, layout=False)
 
     def on_node_list_picked(self, message: NodeList.Picked) -> None:
         self.goto(message.node)
@@ -597,7 +593,8 @@ class PrunetrailApp(App[None]):
                 f"re-check {'done' if done else 'running'}: {message.checked_to:,} of "
                 f"{message.total:,} nodes, {wrong:,} wrong",
                 style="red" if wrong else "green" if done else "",
-            )
+            ),
+            layout=False,
         )
         if len(message.wrong):
             self._update_top()
@@ -638,14 +635,14 @@ class PrunetrailApp(App[None]):
     # -- live follow ---------------------------------------------------------------------
 
     @work(thread=True, exclusive=True, group="follow", exit_on_error=False)
-    def _follow(self, follower: TrailFollower) -> None:
+    def _follow(self, follower: Follower) -> None:
         try:
             while not self._stop_follow.wait(FOLLOW_INTERVAL):
                 if get_current_worker().is_cancelled:
                     return
                 try:
                     _, added, best = follower.poll()
-                except CorruptTrailError as exc:
+                except InputError as exc:
                     self.post_message(Notice(str(exc)))
                     return
                 trail = follower.trail
@@ -733,6 +730,9 @@ class PrunetrailApp(App[None]):
     def action_bookmark(self) -> None:
         """Bookmark the cursor node with a note (editing the note if it is bookmarked)."""
         node = self.cursor
+        if not self.model.count:
+            self.notify("nothing to bookmark: the trail holds no nodes yet", timeout=3)
+            return
         current = next((b.note for b in self.bookmarks if b.node == node), "")
 
         def noted(note: str | None) -> None:
@@ -773,7 +773,12 @@ class PrunetrailApp(App[None]):
         """Save the path from the root to the cursor as a Markdown walkthrough."""
         target = self._export_name(".md")
         model = self.model
-        text = walkthrough(model.trail, model.index, self.cursor, model.completions)
+        if not model.count:
+            self.notify("nothing to walk through: the trail holds no nodes yet", timeout=3)
+            return
+        text = walkthrough(
+            model.trail, model.index, self.cursor, model.completions, model.wrong_ids
+        )
         try:
             target.write_text(text, encoding="utf-8")
         except OSError as exc:

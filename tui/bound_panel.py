@@ -13,12 +13,11 @@ from __future__ import annotations
 import dataclasses
 import math
 import re
+import textwrap
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, ClassVar
 
-import numpy as np
-from numpy.typing import NDArray
 from rich.style import Style
 from rich.text import Text
 from textual.geometry import Size
@@ -26,6 +25,7 @@ from textual.strip import Strip
 from textual.widget import Widget
 
 from tracer.analysis import (
+    REL_TOL,
     SUBTRACTED_TERMS,
     TERM_LABELS,
     TreeIndex,
@@ -33,6 +33,7 @@ from tracer.analysis import (
     format_length,
     narrate,
     node_step,
+    reaches,
     recompute_node,
     recorded_bound,
     recorded_value,
@@ -42,8 +43,6 @@ from tracer.base import BOUND, BOUND_PARTS, DECISION_NAMES, DEPTH, LINK_OUT, PAR
 if TYPE_CHECKING:
     from tui.model import ViewerModel
 
-#: Two float lengths this close (relative) count as equal.
-_REL_TOL = 1e-9
 #: A space between digit groups of one number (as `format_length` writes them).
 _DIGIT_GROUP = re.compile(r"(?<=\d) (?=\d{3}\b)")
 #: Width of a value column.
@@ -188,7 +187,7 @@ def agrees(a: float | None, b: float | None, integral: bool) -> bool:
         return a is None and b is None
     if integral and float(a).is_integer() and float(b).is_integer():
         return a == b
-    return abs(a - b) <= _REL_TOL * max(abs(a), abs(b), 1.0)
+    return abs(a - b) <= REL_TOL * max(abs(a), abs(b), 1.0)
 
 
 def difference(part: PartLine, integral: bool) -> str:
@@ -280,6 +279,8 @@ class BoundPanel(Widget):
         self._view: BoundView | None = None
         self._strips: list[Strip] = []
         self._strips_width = -1
+        self._lines_cache: tuple[int, list[Text]] | None = None
+        self._reserved: dict[int, int] = {}
 
     @property
     def view(self) -> BoundView | None:
@@ -293,26 +294,41 @@ class BoundPanel(Widget):
         if completions is not None:
             value = float(completions[node])
             completion = None if math.isnan(value) else value
-        wrong_ids = model.wrong_ids
-        wrong = bool(wrong_ids is not None and _contains(wrong_ids, node))
         self.show_values(
-            bound_view(model.trail, model.index, node, completion=completion, wrong=wrong)
+            bound_view(
+                model.trail, model.index, node, completion=completion, wrong=model.is_wrong(node)
+            )
         )
 
     def show_values(self, view: BoundView) -> None:
-        """Show a view built elsewhere (tests, exports)."""
+        """Show a view built elsewhere (tests, exports).
+
+        The panel keeps the tallest height it has needed at its width, so stepping from
+        node to node repaints only the panel; the screen is laid out again only when a
+        node needs more lines than any before it.
+        """
         self._view = view
+        self._forget()
+        width = self.size.width
+        if width > 0 and len(self._lines(width)) <= self._reserved.get(width, 0):
+            self.refresh()
+        else:
+            self.refresh(layout=True)
+
+    def _forget(self) -> None:
         self._strips_width = -1
-        self.refresh(layout=True)
+        self._lines_cache = None
 
     def notify_style_update(self) -> None:
         """Styles changed: the cached strips hold old colours."""
         super().notify_style_update()
-        self._strips_width = -1
+        self._forget()
 
     def get_content_height(self, container: Size, viewport: Size, width: int) -> int:
-        """As many lines as the view takes at this width."""
-        return len(self._lines(width))
+        """As many lines as the tallest view shown at this width has taken."""
+        height = max(len(self._lines(width)), self._reserved.get(width, 0))
+        self._reserved = {width: height}
+        return height
 
     def render_line(self, y: int) -> Strip:
         """One line of the panel."""
@@ -341,6 +357,14 @@ class BoundPanel(Widget):
         return self._strips
 
     def _lines(self, width: int) -> list[Text]:
+        cached = self._lines_cache
+        if cached is not None and cached[0] == width:
+            return cached[1]
+        lines = self._build_lines(width)
+        self._lines_cache = (width, lines)
+        return lines
+
+    def _build_lines(self, width: int) -> list[Text]:
         view = self._view
         if view is None:
             return [Text("no node yet", style=self._style("muted"))]
@@ -376,12 +400,10 @@ class BoundPanel(Widget):
             lines.append(self._completion_row(view, fmt))
         lines.append(Text(""))
         wrap = max(width - 2, 20)
-        sentence = Text(_unbroken(view.sentence), style=self._style("sentence"))
-        lines.extend(sentence.wrap(self.app.console, wrap))
+        lines.extend(_wrapped(view.sentence, wrap, self._style("sentence")))
         found = verdict(view)
         if found is not None:
-            words = Text(_unbroken(found), style=self._style("differ"))
-            lines.extend(words.wrap(self.app.console, wrap))
+            lines.extend(_wrapped(found, wrap, self._style("differ")))
         return lines
 
     def _sum_row(self, op: str, label: str, part: PartLine, fmt: _Formatter) -> Text:
@@ -411,7 +433,7 @@ class BoundPanel(Widget):
         assert completion is not None
         row = Text.assemble((f"  {'best through':<12}", label), (f"{fmt(completion):>{_W}}", label))
         if view.decision == "prune" and not math.isinf(view.incumbent):
-            harmful = _beats(completion, view.incumbent, view.integral)
+            harmful = not reaches(completion, view.incumbent, view.integral)
             row.append(
                 "  harmful prune" if harmful else "  safe prune",
                 self._style("harmful" if harmful else "safe"),
@@ -427,22 +449,15 @@ class _Formatter:
         return format_length(value, self.integral)
 
 
-def _unbroken(sentence: str) -> str:
-    """The sentence with the spaces inside numbers ("2 426") made unbreakable for wrapping."""
-    return _DIGIT_GROUP.sub("\u00a0", sentence)
+def _wrapped(sentence: str, width: int, style: Style) -> list[Text]:
+    """The sentence in lines of at most `width`, never breaking a number ("2 426").
+
+    The spaces inside numbers become no-break spaces, which `textwrap` (unlike a `\\s`
+    split) does not break at.
+    """
+    unbroken = _DIGIT_GROUP.sub("\u00a0", sentence)
+    return [Text(line, style=style) for line in textwrap.wrap(unbroken, width)]
 
 
 def _label(name: str) -> str:
     return TERM_LABELS.get(name, name.replace("_", " "))
-
-
-def _beats(value: float, incumbent: float, integral: bool) -> bool:
-    if integral:
-        return round(value) < round(incumbent)
-    return value < incumbent - _REL_TOL * max(abs(value), abs(incumbent), 1.0)
-
-
-def _contains(sorted_ids: NDArray[Any], node: int) -> bool:
-    """Whether a sorted id array holds `node` (binary search, no scan)."""
-    at = int(np.searchsorted(sorted_ids, node))
-    return at < len(sorted_ids) and int(sorted_ids[at]) == node

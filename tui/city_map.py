@@ -23,7 +23,14 @@ from textual.reactive import reactive
 from textual.strip import Strip
 from textual.widget import Widget
 
-from tracer.analysis import CityLayout, TreeIndex, city_layout, recorded_value, remainder
+from tracer.analysis import (
+    CityLayout,
+    TreeIndex,
+    city_layout,
+    format_length,
+    recorded_value,
+    remainder,
+)
 from tracer.base import LINK_IN_CITY, LINK_OUT_CITY, PI, Trail, TrailHeader
 
 if TYPE_CHECKING:
@@ -32,7 +39,9 @@ if TYPE_CHECKING:
 #: Drawing layers, lowest first; a cell takes the colour of the highest one touching it.
 LAYERS = ("incumbent", "tree", "link", "path")
 #: A cell's style number indexes this (0: the widget's own style); names are component classes.
-CELL_STYLES = ("", *LAYERS, "city", "visited", "start", "label", "low-degree", "high-degree")
+CELL_STYLES = ("", *LAYERS, "city", "visited", "start", "label", "low", "high")
+#: What the unvisited cities can be coloured by, in the order the key cycles through them.
+COLOURINGS = ("plain", "degree", "penalty")
 _CELL = {name: number for number, name in enumerate(CELL_STYLES)}
 #: Braille dot bits by (row, column) inside a cell (Unicode's dot numbering).
 _DOT_BITS = np.array([[0x01, 0x08], [0x02, 0x10], [0x04, 0x20], [0x40, 0x80]], dtype=np.uint8)
@@ -52,7 +61,9 @@ class MapView:
         tree: the spanning tree's edges over the unvisited cities (k-1 × 2).
         links: the link edges (into the unvisited cities, and back to the start).
         incumbent: the tour in force, or an empty tuple before any.
-        penalised: the tree and links were chosen with the node's penalties.
+        penalties: every city's penalty at the node (the penalties bound), else None.
+        tree_weight: the recomputed tree's (penalised) weight, for the title.
+        integral: whether lengths are whole numbers (for formatting).
     """
 
     layout: CityLayout
@@ -60,7 +71,9 @@ class MapView:
     tree: NDArray[np.int64]
     links: tuple[tuple[int, int], ...]
     incumbent: tuple[int, ...]
-    penalised: bool = False
+    penalties: NDArray[np.float64] | None = None
+    tree_weight: float = 0.0
+    integral: bool = True
 
 
 def _city_at(trail: Trail, name: str, node: int) -> int | None:
@@ -75,7 +88,11 @@ def incumbent_tour(trail: Trail, index: TreeIndex, node: int) -> tuple[int, ...]
     ordered = sorted(trail.best, key=lambda b: b.at)
     position = int(index.visit[node]) if index.visit is not None else node
     at = bisect.bisect_right([b.at for b in ordered], position) - 1
-    return tuple(ordered[at].tour) if at >= 0 else ()
+    if at < 0:
+        return ()
+    tour = tuple(int(c) for c in ordered[at].tour)
+    # A frame from another solver could name cities the instance lacks: draw no tour then.
+    return tour if all(0 <= c < trail.n for c in tour) else ()
 
 
 def node_penalties(trail: Trail, node: int) -> NDArray[np.float64] | None:
@@ -132,7 +149,9 @@ def map_view(trail: Trail, index: TreeIndex, node: int, layout: CityLayout) -> M
         rest.tree.edges,
         tuple(links),
         incumbent_tour(trail, index, node),
-        penalised=penalties is not None,
+        penalties=penalties,
+        tree_weight=rest.tree.weight,
+        integral=trail.header.instance.integral,
     )
 
 
@@ -195,7 +214,7 @@ class CityMap(Widget, can_focus=True):
 
     BINDINGS: ClassVar[list[BindingType]] = [
         Binding("n", "toggle_labels", "City numbers", id="map_labels"),
-        Binding("d", "toggle_degrees", "Degrees", id="map_degrees"),
+        Binding("d", "cycle_colouring", "Colour cities", id="map_colouring"),
     ]
 
     COMPONENT_CLASSES: ClassVar[set[str]] = {
@@ -209,8 +228,8 @@ class CityMap(Widget, can_focus=True):
         "city-map--visited",
         "city-map--start",
         "city-map--label",
-        "city-map--low-degree",
-        "city-map--high-degree",
+        "city-map--low",
+        "city-map--high",
     }
 
     DEFAULT_CSS = """
@@ -225,15 +244,16 @@ class CityMap(Widget, can_focus=True):
     CityMap > .city-map--visited { color: $warning; text-style: bold; }
     CityMap > .city-map--start { color: $error; text-style: bold; }
     CityMap > .city-map--label { color: $accent; }
-    CityMap > .city-map--low-degree { color: $primary; text-style: bold; }
-    CityMap > .city-map--high-degree { color: $error; text-style: bold; }
+    CityMap > .city-map--low { color: $primary; text-style: bold; }
+    CityMap > .city-map--high { color: $error; text-style: bold; }
     """
 
     labels: reactive[bool] = reactive(False)
     """Whether city numbers are written beside the cities."""
 
-    by_degree: reactive[bool] = reactive(False)
-    """Whether unvisited cities are coloured by their degree in the tree and links."""
+    colouring: reactive[str] = reactive("plain")
+    """What colours the unvisited cities: nothing, their degree in the tree and links, or
+    their penalty (the penalties bound only)."""
 
     def __init__(
         self, *, name: str | None = None, id: str | None = None, classes: str | None = None
@@ -281,14 +301,19 @@ class CityMap(Widget, can_focus=True):
         """Show or hide the city numbers."""
         self.labels = not self.labels
 
-    def action_toggle_degrees(self) -> None:
-        """Colour the unvisited cities by degree in the bound's structure, or not."""
-        self.by_degree = not self.by_degree
+    def action_cycle_colouring(self) -> None:
+        """Colour the cities plainly, by degree, or by penalty (where the trail has them)."""
+        kinds = [c for c in COLOURINGS if c != "penalty" or self._has_penalties()]
+        at = kinds.index(self.colouring) if self.colouring in kinds else 0
+        self.colouring = kinds[(at + 1) % len(kinds)]
+
+    def _has_penalties(self) -> bool:
+        return self._view is not None and self._view.penalties is not None
 
     def watch_labels(self) -> None:
         self._invalidate()
 
-    def watch_by_degree(self) -> None:
+    def watch_colouring(self) -> None:
         self._invalidate()
 
     def notify_style_update(self) -> None:
@@ -323,7 +348,10 @@ class CityMap(Widget, can_focus=True):
             return [self._text_strip([(self._message, "title")], width)]
         if view is None or width < 4 or height < 3:
             return []
-        title = "map · approximate layout from distances" if view.layout.approximate else "map"
+        left = view.layout.xy.shape[0] - len(set(view.path))
+        title = f"map · {left} left · tree {format_length(view.tree_weight, view.integral)}"
+        if view.layout.approximate:
+            title += " · approximate layout from distances"
         rows, cols = height - 2, width
         chars, styles = self._cells(view, rows, cols)
         lines = [self._text_strip([(title, "title")], width)]
@@ -340,21 +368,22 @@ class CityMap(Widget, can_focus=True):
                 segments.append(Segment(text, style))
                 c = stop
             lines.append(Strip(segments, cols))
+        with_pi = " (π)" if view.penalties is not None else ""
         legend = [
             ("⣿ ", "path"),
             ("path  ", "legend"),
             ("⣿ ", "tree"),
-            ("tree  ", "legend"),
+            (f"tree{with_pi}  ", "legend"),
             ("⣿ ", "link"),
-            ("links  ", "legend"),
+            (f"links{with_pi}  ", "legend"),
             ("⣿ ", "incumbent"),
             ("best tour  ", "legend"),
         ]
-        if self.by_degree:
-            legend += [("○ ", "low-degree"), ("degree 1  ", "legend")]
-            legend += [("○ ", "high-degree"), ("degree 3+  ", "legend")]
-        if view.penalised:
-            legend.append(("tree and links penalised  ", "legend"))
+        if self.colouring == "degree":
+            legend += [("○ ", "low"), ("degree 1  ", "legend"), ("○ ", "high")]
+            legend.append(("degree 3+  ", "legend"))
+        elif self.colouring == "penalty" and view.penalties is not None:
+            legend += [("○ ", "low"), ("π < 0  ", "legend"), ("○ ", "high"), ("π > 0  ", "legend")]
         lines.append(self._text_strip(legend, width))
         return lines
 
@@ -379,10 +408,13 @@ class CityMap(Widget, can_focus=True):
         on_path = np.zeros(len(dots), dtype=np.bool_)
         on_path[list(view.path)] = True
         city = np.full(len(dots), _CELL["city"])
-        if self.by_degree:
+        if self.colouring == "degree":
             degree = degrees(view, len(dots))
-            city[degree == 1] = _CELL["low-degree"]
-            city[degree >= 3] = _CELL["high-degree"]
+            city[degree == 1] = _CELL["low"]
+            city[degree >= 3] = _CELL["high"]
+        elif self.colouring == "penalty" and view.penalties is not None:
+            city[view.penalties < 0] = _CELL["low"]
+            city[view.penalties > 0] = _CELL["high"]
         chars[cell_r, cell_c] = np.where(on_path, _VISITED_GLYPH, _CITY_GLYPH)
         styles[cell_r, cell_c] = np.where(on_path, _CELL["visited"], city)
         if view.path:

@@ -14,7 +14,6 @@ import hashlib
 import os
 import shlex
 import sys
-from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -26,6 +25,8 @@ from rich.text import Text
 import tracer
 from tracer.analysis import TreeIndex, completion_table, explain
 from tracer.base import DECISION, DECISION_BY_NAME, PrunetrailError, Trail
+from tracer.cli import EXIT_INTERRUPTED
+from tracer.cli import main as tracer_cli
 from tracer.trails import open_trail
 
 #: Environment variable naming the cache folder (default: the platform's user cache).
@@ -187,24 +188,20 @@ def run(args: argparse.Namespace) -> int:
             f"no scenario {args.name!r}; choose one of {', '.join(BY_NAME)} (see --list)"
         )
     headless = args.headless or not (sys.stdin.isatty() and sys.stdout.isatty())
-    trail_path = prepare(scenario, console, _cli())
-    if headless:
-        return 0
+    trail_path = prepare(scenario, console)
     trail = open_trail(trail_path)
     node = focus_node(scenario, trail, TreeIndex(trail.columns, trail.best))
+    if headless:
+        console.print()
+        console.print(f"to look at it: prunetrail view {shlex.quote(str(trail_path))} --at {node}")
+        return 0
     from tui.app import PrunetrailApp  # the viewer loads only when it is shown
 
     PrunetrailApp(trail_path, at=node).run()
     return 0
 
 
-def _cli() -> Callable[[Sequence[str]], int]:
-    from tracer.cli import main
-
-    return main
-
-
-def prepare(scenario: Scenario, console: Console, cli: Callable[[Sequence[str]], int]) -> Path:
+def prepare(scenario: Scenario, console: Console) -> Path:
     """Make the scenario's trail unless cached, then run `check` and `why` on it."""
     source = scenario_dir() / scenario.source
     target = cached_trail(scenario, source)
@@ -215,20 +212,21 @@ def prepare(scenario: Scenario, console: Console, cli: Callable[[Sequence[str]],
         target.parent.mkdir(parents=True, exist_ok=True)
         partial = target.with_suffix(".partial")
         verb = ["import"] if scenario.imported else ["solve", *scenario.solve]
-        _step(console, cli, [*verb, str(source), "-o", str(partial)], ok=(0,))
+        _step(console, [*verb, str(source), "-o", str(partial)], ok=(0,))
         partial.replace(target)
         console.print(f"trail cached at {target}")
-    _step(console, cli, ["check", str(target), "--first", "3"], ok=(0, 1))
-    _step(console, cli, ["why", str(target)], ok=(0, 1))
+    _step(console, ["check", str(target), "--first", "3"], ok=(0, 1))
+    _step(console, ["why", str(target)], ok=(0, 1))
     return target
 
 
-def _step(
-    console: Console, cli: Callable[[Sequence[str]], int], argv: list[str], ok: tuple[int, ...]
-) -> None:
+def _step(console: Console, argv: list[str], ok: tuple[int, ...]) -> None:
+    """Run one `prunetrail` command as a user would, showing its command line first."""
     console.print()
     console.print(Text("$ prunetrail " + shlex.join(argv), style="cyan"))
-    status = cli(argv)
+    status = tracer_cli(argv)
+    if status == EXIT_INTERRUPTED:
+        raise KeyboardInterrupt
     if status not in ok:
         raise PrunetrailError(f"`prunetrail {shlex.join(argv)}` ended with status {status}")
 

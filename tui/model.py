@@ -217,18 +217,22 @@ class ViewerModel:
 
     def parent(self, node: int) -> int | None:
         """The node's parent, if recorded."""
+        if not 0 <= node < self.count:
+            return None
         parent = int(self.index.parent[node])
         return parent if parent >= 0 else None
 
     def first_child(self, node: int) -> int | None:
         """The node's first child, if it has one."""
         child = node + 1
-        if child < self.count and int(self.index.parent[child]) == node:
+        if node >= 0 and child < self.count and int(self.index.parent[child]) == node:
             return child
         return None
 
     def next_sibling(self, node: int) -> int | None:
         """The next child of the node's parent, if there is one."""
+        if not 0 <= node < self.count:
+            return None
         following = int(self.index.end[node])
         if following < self.count and int(self.index.parent[following]) == int(
             self.index.parent[node]

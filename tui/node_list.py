@@ -89,10 +89,16 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
             self.node = node
 
     def __init__(
-        self, model: ViewerModel, *, id: str | None = None, classes: str | None = None
+        self,
+        model: ViewerModel,
+        header: Static | None = None,
+        *,
+        id: str | None = None,
+        classes: str | None = None,
     ) -> None:
         super().__init__(id=id, classes=classes)
         self.model = model
+        self.header = header
         self._cache: LRUCache[int, Strip] = LRUCache(1024)
         self._styles: dict[str, Style] | None = None
         self._row_width = 0
@@ -118,7 +124,10 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
     def watch_cursor_row(self, old: int, new: int) -> None:
         self.refresh_line(old)
         self.refresh_line(new)
-        self.scroll_to_region(Region(0, new, 1, 1), animate=False, force=True, immediate=True)
+        far = abs(new - old) > self.size.height
+        self.scroll_to_region(
+            Region(0, new, 1, 1), animate=False, force=True, immediate=True, center=far
+        )
 
     def notify_style_update(self) -> None:
         super().notify_style_update()
@@ -129,6 +138,8 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
         self._cache.clear()
         self._row_width = self.scrollable_content_region.width
         self.virtual_size = Size(self._row_width, len(self.model.rows))
+        if self.header is not None:
+            self.header.update(self.header_text(), layout=False)
 
     def header_text(self) -> Text:
         """The column titles, aligned with the rows at the current width."""

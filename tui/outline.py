@@ -3,8 +3,10 @@
 A search tree of millions of nodes cannot become millions of tree rows, so rows are made
 only when their parent is expanded (`TreeIndex.children`), at most `PAGE` at a time; a
 "more…" row loads the next page. Each row says the city the node adds, its decision and
-its bound. Choosing a row posts `BranchOutline.Picked`; `show` reveals the cursor node by
-loading just the pages on its path, without posting anything.
+its bound, with a mark where the re-check found the record wrong. Choosing a row posts
+`BranchOutline.Picked`; `show` reveals the cursor node by loading just the pages on its
+path, without posting anything; once `MAX_ROWS` rows have been made it folds back to the
+cursor's path, so stepping through millions of nodes keeps the outline small.
 """
 
 from __future__ import annotations
@@ -13,6 +15,8 @@ import itertools
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, ClassVar
 
+import numpy as np
+from numpy.typing import NDArray
 from rich.style import Style
 from rich.text import Text
 from textual import on
@@ -28,6 +32,8 @@ if TYPE_CHECKING:
 
 #: Children shown per page before a "more…" row.
 PAGE = 200
+#: Rows kept before the outline folds back to just the cursor's path (bounds its memory).
+MAX_ROWS = 5000
 
 
 @dataclass(frozen=True)
@@ -61,6 +67,7 @@ class BranchOutline(Tree[Row]):
         "branch-outline--tour",
         "branch-outline--bound",
         "branch-outline--more",
+        "branch-outline--wrong",
     }
 
     DEFAULT_CSS = """
@@ -71,26 +78,38 @@ class BranchOutline(Tree[Row]):
     BranchOutline > .branch-outline--tour { color: $success; }
     BranchOutline > .branch-outline--bound { color: $text-muted; }
     BranchOutline > .branch-outline--more { color: $accent; text-style: italic; }
+    BranchOutline > .branch-outline--wrong { color: $error; text-style: bold; }
     """
 
     def __init__(
         self,
         *,
         page: int = PAGE,
+        max_rows: int = MAX_ROWS,
         name: str | None = None,
         id: str | None = None,
         classes: str | None = None,
     ) -> None:
         super().__init__("no trail", name=name, id=id, classes=classes)
         self.page = page
+        self.max_rows = max_rows
         self._trail: Trail | None = None
         self._index: TreeIndex | None = None
         self._rows: dict[int, TreeNode[Row]] = {}
         self._loaded: dict[int, int] = {}
+        self._wrong: NDArray[np.int64] = np.zeros(0, dtype=np.int64)
 
     def show(self, model: ViewerModel, node: int) -> None:
-        """Reveal `node` of the model's trail and put the outline's cursor on it."""
+        """Reveal `node` of the model's trail and put the outline's cursor on it.
+
+        Rows of records the re-check found wrong carry a mark; when more have been found
+        since the last call, the rows already made are marked again.
+        """
         self.show_trail(model.trail, model.index, node)
+        if len(model.wrong_ids) != len(self._wrong):
+            self._wrong = model.wrong_ids
+            for number, row in self._rows.items():
+                row.set_label(self._label(number))
 
     def show_trail(self, trail: Trail, index: TreeIndex, node: int) -> None:
         """Reveal `node` of `trail`.
@@ -105,6 +124,9 @@ class BranchOutline(Tree[Row]):
             self._reset_to(trail, index)
         if not 0 <= node < trail.count:
             return
+        if len(self._rows) > self.max_rows:
+            # Stepping through a big trail opens row after row: start again from the path.
+            self._reset_to(trail, index)
         target = self._reveal(node)
         if target is not None:
             # Row numbers exist once the tree has laid out its new rows.
@@ -150,7 +172,10 @@ class BranchOutline(Tree[Row]):
         kind = "tour" if decision.startswith("tour") else decision
         bound = recorded_bound(trail, node)
         integral = trail.header.instance.integral
+        at = int(np.searchsorted(self._wrong, node))
+        wrong = at < len(self._wrong) and int(self._wrong[at]) == node
         return Text.assemble(
+            ("✗ " if wrong else "", self._style("wrong")),
             (f"{int(trail.columns[CITY][node])}", self._style("city")),
             "  ",
             (decision, self._style(kind)),
@@ -213,7 +238,8 @@ class BranchOutline(Tree[Row]):
     @on(Tree.NodeExpanded)
     def _expanded(self, event: Tree.NodeExpanded[Row]) -> None:
         data = event.node.data
-        if data is not None and data.more_from is None and self._trail is not None:
+        # Only a row of the current outline (not one dropped by a fold or a new trail).
+        if data is not None and data.more_from is None and self._rows.get(data.node) is event.node:
             self._ensure_loaded(data.node)
 
     @on(Tree.NodeSelected)
@@ -223,7 +249,7 @@ class BranchOutline(Tree[Row]):
             return
         if data.more_from is not None:
             parent = event.node.parent
-            if parent is not None:
+            if parent is not None and self._rows.get(data.node) is parent:
                 self._take_more(parent)
             return
         self.post_message(self.Picked(data.node))

@@ -32,6 +32,11 @@ def _share(value: float) -> str:
     return "—" if not math.isfinite(value) else f"{value:.3f}"
 
 
+def depth_ticks(count: int) -> list[float]:
+    """Whole-number ticks for depths 0..count-1, about ten of them."""
+    return [float(d) for d in range(0, max(count, 1), max(1, count // 10))]
+
+
 class StatsScreen(Screen[None]):
     """Per-depth counts, prune rates and bound tightness of the trail."""
 
@@ -105,6 +110,7 @@ class StatsScreen(Screen[None]):
             names = [*(DECISION_NAMES[c] for c in shown), "tour"]
             plt.stacked_bar(depths, series, labels=names)  # type: ignore[call-arg]  # stub says label
         plt.title("nodes per depth")
+        plt.xticks(depth_ticks(len(depths)))
         plt.xlabel("depth")
         plot.refresh()
 
@@ -125,6 +131,7 @@ class StatsScreen(Screen[None]):
                 plt.plot(xs, [float(values[d]) for d in xs], label=label, marker="braille")
         plt.ylim(0, 1.05)
         plt.title("prune rate and tightness")
+        plt.xticks(depth_ticks(len(depths)))
         plt.xlabel("depth")
         plot.refresh()
 

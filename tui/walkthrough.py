@@ -11,6 +11,9 @@ from __future__ import annotations
 import math
 import re
 
+import numpy as np
+from numpy.typing import NDArray
+
 from tracer.analysis import (
     SUBTRACTED_TERMS,
     TERM_LABELS,
@@ -19,6 +22,7 @@ from tracer.analysis import (
     format_length,
     narrate,
     node_step,
+    recompute_node,
 )
 from tracer.analysis.narrate import recorded_value
 from tracer.base import DECISION_NAMES, NO_BOUND, Trail
@@ -32,7 +36,11 @@ def escape_markdown(text: str) -> str:
 
 
 def walkthrough(
-    trail: Trail, index: TreeIndex, node: int, completions: object | None = None
+    trail: Trail,
+    index: TreeIndex,
+    node: int,
+    completions: NDArray[np.float64] | None = None,
+    wrong_ids: NDArray[np.int64] | None = None,
 ) -> str:
     """The Markdown walkthrough of the path from the root to `node`.
 
@@ -40,8 +48,10 @@ def walkthrough(
         trail: the trail.
         index: its tree index.
         node: the last node of the walk.
-        completions: the oracle's best completion per node (an array), if known.
+        completions: the oracle's best completion per node, if known.
+        wrong_ids: sorted ids the re-check found wrong; those steps get the recomputed sum.
     """
+    wrong = set() if wrong_ids is None else set(np.asarray(wrong_ids).tolist())
     instance = trail.header.instance
     integral = instance.integral
     path = index.path(node)
@@ -57,7 +67,7 @@ def walkthrough(
     for step_no, here in enumerate(index.ancestors(node), start=1):
         completion = None
         if completions is not None:
-            value = float(completions[here])  # type: ignore[index]
+            value = float(completions[here])
             completion = None if math.isnan(value) else value
         step = node_step(trail, index, here, completion)
         city = int(index.city[here])
@@ -67,8 +77,30 @@ def walkthrough(
         lines.append(f"- incumbent in force: {format_length(step.incumbent, integral)}")
         lines.append(f"- decision: **{DECISION_NAMES[step.decision]}**")
         lines.append(f"- {narrate(step)}")
+        if here in wrong:
+            lines.append(f"- re-check: **wrong**; recomputed {_recomputed(trail, index, here)}")
         lines.append("")
     return "\n".join(lines)
+
+
+def _recomputed(trail: Trail, index: TreeIndex, node: int) -> str:
+    """The independent values of the bound's parts, written as a sum."""
+    values = recompute_node(trail, index, node)
+    integral = trail.header.instance.integral
+    pieces = [
+        f"{TERM_LABELS.get(name, name)} {format_length(_number(values.get(name)), integral)}"
+        for name in bound_terms(trail.header)
+        if name in values
+    ]
+    bound = _number(values.get("bound"))
+    total = f" = bound {format_length(bound, integral)}" if bound is not None else ""
+    decision = values.get("decision")
+    rule = f"; the rule gives {DECISION_NAMES[int(decision)]}" if decision is not None else ""
+    return " + ".join(pieces) + total + rule
+
+
+def _number(value: object) -> float | None:
+    return float(value) if isinstance(value, int | float) else None
 
 
 def _sum(

@@ -25,6 +25,7 @@ from textual_plotext import PlotextPlot
 
 from tracer.analysis import TERM_LABELS, TreeIndex, WhyReport, format_length, recorded_bound
 from tracer.base import Trail
+from tui.stats_screen import depth_ticks
 
 #: Harmful prunes listed at most (the report may hold more).
 MAX_PRUNE_ROWS = 500
@@ -154,6 +155,7 @@ class WhyScreen(Screen[int | None]):
                 if shown:
                     xs, ys = zip(*shown, strict=True)
                     plt.plot(list(xs), list(ys), label=label, marker="braille")
+            plt.xticks(depth_ticks(len(chain)))
             plt.xlabel("depth on the branch")
         plt.title("the reference tour's branch: bound against incumbent")
         plot.refresh()

@@ -10,14 +10,24 @@ the tree's shape only; bytes/node are the trail's.
 from __future__ import annotations
 
 import argparse
+import sys
 import tempfile
 import time
 from pathlib import Path
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))  # for tests.reference
+
 from tests.reference import TSPLIB_OPTIMUM, instance_path
 from tracer.base.frames import EndInfo
+from tracer.base.instance import Instance
 from tracer.formats.load import load_instance
-from tracer.search.driver import SearchSettings, StartTour, make_start, run_search, trail_header
+from tracer.search.driver import (
+    SearchSettings,
+    StartTour,
+    make_start,
+    run_search,
+    trail_header,
+)
 from tracer.trails.writer import TrailWriter
 
 #: Node counts of the prototype quoted in issue 12 (written apart from the project).
@@ -34,26 +44,27 @@ NAMES = ("ulysses22", "bays29", "dantzig42", "att48", "gr48", "eil51", "berlin52
 
 
 def recorded(
-    instance: object, settings: SearchSettings, start: StartTour, path: Path
+    instance: Instance, settings: SearchSettings, start: StartTour, path: Path
 ) -> tuple[float, int, int]:
     """Seconds, nodes and trail bytes of one recorded run."""
-    writer = TrailWriter(path, trail_header(instance, settings, start, "bench"))  # type: ignore[arg-type]
+    writer = TrailWriter(path, trail_header(instance, settings, start, "bench"))
     began = time.perf_counter()
-    r = run_search(instance, settings, start, sink=writer)  # type: ignore[arg-type]
+    r = run_search(instance, settings, start, sink=writer)
     size = writer.close(
         EndInfo(r.status, r.nodes, r.recorded, r.decisions, r.seconds, r.length, r.tour)
     )
     return time.perf_counter() - began, r.nodes, size
 
 
-def main() -> None:
+def main(argv: list[str] | None = None) -> list[dict[str, str]]:
+    """Print the table; return summary rows for tests/bench/run_all.py."""
     parser = argparse.ArgumentParser()
     parser.add_argument("names", nargs="*", default=list(NAMES))
     parser.add_argument("--steps", type=int, default=SearchSettings().penalty_steps)
     parser.add_argument("--root-steps", type=int, default=SearchSettings().root_steps)
     parser.add_argument("--cutoff", type=int, default=2)
     parser.add_argument("--no-record", action="store_true", help="skip the recorded runs")
-    args = parser.parse_args()
+    args = parser.parse_args(argv or [])
     settings = SearchSettings(
         bound="penalties",
         cutoff=args.cutoff,
@@ -73,6 +84,8 @@ def main() -> None:
     )
     print("|---|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|")
     total = 0.0
+    proto_nodes = ours_nodes = 0
+    reached = True
     for name in args.names:
         instance = load_instance(instance_path(name))
         start = make_start(instance, "nn", "2opt+oropt")
@@ -83,7 +96,12 @@ def main() -> None:
         total += plain
         proto = PROTOTYPE_NODES.get(name)
         ratio = f"{r.nodes / proto:.2f}" if proto else "-"
-        found = "yes" if r.length == TSPLIB_OPTIMUM[name] and r.status == "complete" else "NO"
+        ok = r.length == TSPLIB_OPTIMUM[name] and r.status == "complete"
+        reached &= ok
+        found = "yes" if ok else "NO"
+        if proto:
+            proto_nodes += proto
+            ours_nodes += r.nodes
         cells = [
             name,
             f"{TSPLIB_OPTIMUM[name]}",
@@ -108,7 +126,16 @@ def main() -> None:
             ]
         print("| " + " | ".join(cells) + " |", flush=True)
     print(f"\ntotal search seconds (not recorded): {total:.2f}")
+    return [
+        {"measure": "penalties: every published optimum reached", "value": str(reached)},
+        {"measure": "penalties: total search seconds", "value": f"{total:.2f}"},
+        {
+            "measure": "penalties: nodes / prototype nodes (where quoted)",
+            "value": f"{ours_nodes / max(proto_nodes, 1):.2f}",
+            "target": "<= 1",
+        },
+    ]
 
 
 if __name__ == "__main__":
-    main()
+    main(sys.argv[1:])

@@ -8,6 +8,7 @@ from tracer.analysis.narrate import (
     format_length,
     narrate,
     node_step,
+    reaches,
     recorded_bound,
     recorded_value,
 )
@@ -84,6 +85,7 @@ __all__ = [
     "node_step",
     "parse_filter",
     "parse_stops",
+    "reaches",
     "recheck",
     "recompute_node",
     "recorded_bound",

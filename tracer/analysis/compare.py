@@ -73,14 +73,23 @@ def same_instance(a: Trail, b: Trail) -> None:
         )
 
 
-def match_nodes(a: TreeIndex, b: TreeIndex, n: int) -> NDArray[np.int64]:
-    """For every node of A, the id of the node of B with the same path, or -1."""
+def match_nodes(
+    a: TreeIndex,
+    b: TreeIndex,
+    n: int,
+    levels: tuple[list[NDArray[np.int64]], list[NDArray[np.int64]]] | None = None,
+) -> NDArray[np.int64]:
+    """For every node of A, the id of the node of B with the same path, or -1.
+
+    Args:
+        levels: each tree's node ids per depth (`levels`), if already at hand.
+    """
     match = np.full(a.count, -1, dtype=np.int64)
     if not a.count or not b.count:
         return match
     if int(a.depth[0]) == 0 and int(b.depth[0]) == 0 and int(a.city[0]) == int(b.city[0]):
         match[0] = 0
-    levels_a, levels_b = _levels(a.depth), _levels(b.depth)
+    levels_a, levels_b = levels or (levels_of(a.depth), levels_of(b.depth))
     for d in range(1, min(len(levels_a), len(levels_b))):
         ids_a, ids_b = levels_a[d], levels_b[d]
         if not len(ids_a) or not len(ids_b):
@@ -104,8 +113,8 @@ def match_nodes(a: TreeIndex, b: TreeIndex, n: int) -> NDArray[np.int64]:
     return match
 
 
-def _levels(depth: NDArray[Any]) -> list[NDArray[np.int64]]:
-    """Node ids at each depth, ascending."""
+def levels_of(depth: NDArray[Any]) -> list[NDArray[np.int64]]:
+    """Node ids at each depth, ascending (a stable sort of small integers: a radix sort)."""
     if not len(depth):
         return []
     order = np.argsort(depth, kind="stable").astype(np.int64)
@@ -113,15 +122,20 @@ def _levels(depth: NDArray[Any]) -> list[NDArray[np.int64]]:
     return [order[edges[d] : edges[d + 1]] for d in range(len(edges) - 1)]
 
 
-def _sibling_rank(index: TreeIndex) -> NDArray[np.int64]:
-    """Each node's position among its parent's children (0 for the first)."""
-    parent = index.parent.astype(np.int64)
-    order = np.argsort(parent, kind="stable")
-    grouped = parent[order]
-    starts = np.flatnonzero(np.r_[True, grouped[1:] != grouped[:-1]])
-    run = np.repeat(starts, np.diff(np.r_[starts, len(grouped)]))
-    rank = np.empty(index.count, dtype=np.int64)
-    rank[order] = np.arange(index.count) - run
+def _sibling_rank(index: TreeIndex, levels: list[NDArray[np.int64]]) -> NDArray[np.int64]:
+    """Each node's position among its parent's children (0 for the first).
+
+    In pre-order the nodes of one depth, taken by id, have non-decreasing parents, so each
+    parent's children are one run of its level and a rank is a position in that run.
+    """
+    rank = np.zeros(index.count, dtype=np.int64)
+    for ids in levels:
+        if not len(ids):
+            continue
+        parent = index.parent[ids]
+        starts = np.flatnonzero(np.r_[True, parent[1:] != parent[:-1]])
+        run = np.repeat(starts, np.diff(np.r_[starts, len(ids)]))
+        rank[ids] = np.arange(len(ids)) - run
     return rank
 
 
@@ -303,7 +317,8 @@ def compare_trails(
     rows = max(counts_a.shape[0], counts_b.shape[0])
     counts_a, counts_b = _pad(counts_a, rows), _pad(counts_b, rows)
 
-    match = match_nodes(ia, ib, a.n)
+    levels_a, levels_b = levels_of(ia.depth), levels_of(ib.depth)
+    match = match_nodes(ia, ib, a.n, (levels_a, levels_b))
     pair_a = np.flatnonzero(match >= 0)
     pair_b = match[pair_a]
     flagged: dict[str, NDArray[np.int64]] = {}
@@ -332,7 +347,7 @@ def compare_trails(
     flagged["children"] = children[~unfinished]
 
     # Child order: a matched child at another position among its siblings.
-    rank_a, rank_b = _sibling_rank(ia), _sibling_rank(ib)
+    rank_a, rank_b = _sibling_rank(ia, levels_a), _sibling_rank(ib, levels_b)
     moved = pair_a[(rank_a[pair_a] != rank_b[pair_b]) & (parent_a[pair_a] >= 0)]
     flagged["child_order"] = np.unique(parent_a[moved])
 

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from tracer.analysis.rechecking import REL_TOL
 from tracer.analysis.tree_index import TreeIndex
 from tracer.base import (
     BOUND,
@@ -40,8 +41,6 @@ TERM_LABELS: dict[str, str] = {
 }
 #: Parts taken away from the sum rather than added (the penalties bound's 2·Σπ).
 SUBTRACTED_TERMS = frozenset({PENALTY})
-#: Two float lengths closer than this times the larger one are the same length.
-_REL_TOL = 1e-9
 
 
 @dataclass(frozen=True)
@@ -117,7 +116,7 @@ def recorded_bound(trail: Trail, node: int) -> float | None:
     )
     if trail.header.solver.bound == PENALTIES and trail.header.instance.integral:
         # Penalised parts are fractional; a tour of whole-number edges is at least the ceiling.
-        total = math.ceil(total - _REL_TOL * max(abs(total), 1.0))
+        total = math.ceil(total - REL_TOL * max(abs(total), 1.0))
     return float(total)
 
 
@@ -150,7 +149,7 @@ def reaches(value: float, incumbent: float, integral: bool = True) -> bool:
         return False
     if integral:
         return value >= incumbent
-    return value >= incumbent - _REL_TOL * max(abs(value), abs(incumbent), 1.0)
+    return value >= incumbent - REL_TOL * max(abs(value), abs(incumbent), 1.0)
 
 
 def narrate(step: Step) -> str:

@@ -415,7 +415,10 @@ def _clause_mask(
     if node_filter.decisions:
         decision = trail.columns[DECISION][ids]
         for codes in node_filter.decisions:
-            keep &= np.isin(decision, np.array(sorted(codes), dtype=decision.dtype))
+            chosen = np.zeros(len(decision), dtype=np.bool_)
+            for code in codes:
+                chosen |= decision == code
+            keep &= chosen
     if node_filter.ratios:
         as_ids = _as_ids(ids)
         with np.errstate(invalid="ignore", divide="ignore"):

@@ -28,7 +28,6 @@ from tracer.base import (
     TREE,
     Decision,
     Trail,
-    is_absent,
 )
 
 #: Where the tightness figures come from.
@@ -36,13 +35,6 @@ ORACLE = "oracle"
 FINAL_INCUMBENT = "final incumbent"
 
 _DECISIONS = len(DECISION_NAMES)
-
-
-def _as_float(values: NDArray[Any]) -> NDArray[np.float64]:
-    """A length column as float64, with its absent value as NaN."""
-    out = values.astype(np.float64)
-    out[is_absent(values)] = np.nan
-    return out
 
 
 def bounded_mask(trail: Trail, bounds: NDArray[np.float64] | None = None) -> NDArray[np.bool_]:

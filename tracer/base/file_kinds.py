@@ -50,14 +50,12 @@ def sniff_bytes(head: bytes) -> FileKind:
         return FileKind.EMPTY
     if head[0] in _MAP_MARKERS and b"kind" in head[:64]:
         return FileKind.TRAIL
-    if b"\x00" in head:
-        return FileKind.BINARY
     text = head.decode("utf-8", errors="replace")
-    if text.count("\ufffd") > len(text) // 20 + 1:
-        return FileKind.BINARY
     first = next((line for line in text.splitlines() if line.strip()), "").lstrip("\ufeff ")
-    if first.startswith("{"):
+    if first.startswith("{"):  # what follows the first line is the reader's to judge
         return FileKind.JSON_LINES
+    if b"\x00" in head or text.count("\ufffd") > len(text) // 20 + 1:
+        return FileKind.BINARY
     if _TSPLIB_LINE.match(first):
         return FileKind.TSPLIB
     if _CSV_LINE.match(first):

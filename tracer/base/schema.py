@@ -85,6 +85,10 @@ LINK_OUT_CITY = "link_out_city"  # (at a complete path: the closing edge, to cit
 DECISION = "decision"
 BOUND = "bound"  # optional: a bound recorded by a foreign solver (ours derives it)
 VISIT = "visit"  # optional: visit order, when it differs from pre-order (imported trails)
+SOURCE_ID = "source_id"  # optional: the id a foreign solver gave the node (imported trails)
+SOURCE_LINE = "source_line"  # optional: the line of the trace the node came from
+#: Where an imported node came from, so findings name it in the solver's own words.
+SOURCE_COLUMNS = (SOURCE_ID, SOURCE_LINE)
 # Columns of the penalties bound (there tree, link_in and link_out hold penalised lengths).
 PENALTY = "penalty"  # 2 * sum of the unvisited cities' penalties, subtracted from the sum
 PI = "pi"  # every city's penalty in quanta of the header's penalty_quantum (a row of n)
@@ -114,7 +118,7 @@ ENGINE_COLUMNS = PENALTY_COLUMNS
 ROW_COLUMNS = (PI,)
 #: Columns of a `--record decisions` trail: the tree's shape and what was decided.
 DECISION_COLUMNS = (CITY, DEPTH, DECISION)
-KNOWN_COLUMNS = frozenset((*PENALTY_COLUMNS, BOUND, VISIT))
+KNOWN_COLUMNS = frozenset((*PENALTY_COLUMNS, BOUND, VISIT, *SOURCE_COLUMNS))
 
 
 #: Block compression: zstandard (our writer) or none (hand-written writers).
@@ -202,6 +206,8 @@ def column_layout(
         LINK_OUT_CITY: cities,
         DECISION: np.dtype("<u1"),
         VISIT: np.dtype("<u8"),
+        SOURCE_ID: np.dtype("<i8"),
+        SOURCE_LINE: np.dtype("<u8"),
         TREE: fractional,
         LINK_IN: fractional,
         LINK_OUT: fractional,

@@ -10,6 +10,7 @@ from rich.table import Table
 from rich.text import Text
 
 from tracer.analysis import KINDS, REL_TOL, Finding, RecheckReport, TreeIndex, recheck
+from tracer.base import SOURCE_ID, SOURCE_LINE, Trail
 from tracer.cli._args import count, id_range
 from tracer.cli._console import emit_json, err, out
 from tracer.trails import open_trail
@@ -93,19 +94,31 @@ def run(args: argparse.Namespace) -> int:
             "complete": complete,
             "notice": trail.notice,
         }
+        for finding in result["first"]:
+            finding.update(_source(trail, finding["id"]))
         emit_json(result)
     else:
-        _print_report(args.trail, report)
+        _print_report(args.trail, report, trail)
     if not report.ok:
         return EXIT_WRONG
     return 0 if complete else EXIT_INCOMPLETE
+
+
+def _source(trail: Trail, node: int) -> dict[str, int]:
+    """The id the solver gave an imported node and the line it came from ({} if ours)."""
+    if SOURCE_ID not in trail.columns:
+        return {}
+    return {
+        "source_id": int(trail.columns[SOURCE_ID][node]),
+        "source_line": int(trail.columns[SOURCE_LINE][node]),
+    }
 
 
 def _value(value: Any) -> Text:
     return Text("-" if value is None else str(value))
 
 
-def _print_report(name: str, report: RecheckReport) -> None:
+def _print_report(name: str, report: RecheckReport, trail: Trail) -> None:
     span = f"ids {report.start}..{report.stop - 1}" if report.nodes_checked else "no records"
     if report.ok:
         out.print(
@@ -124,12 +137,14 @@ def _print_report(name: str, report: RecheckReport) -> None:
             kinds.add_row(Text(kind), Text(f"{wrong:,}"))
     out.print(kinds)
     if report.first:
-        out.print(_findings_table(report.first))
+        out.print(_findings_table(report.first, trail))
 
 
-def _findings_table(findings: list[Finding]) -> Table:
+def _findings_table(findings: list[Finding], trail: Trail) -> Table:
+    imported = SOURCE_ID in trail.columns
     table = Table(
         "id",
+        *(["solver id", "line"] if imported else []),
         "kind",
         "field",
         "recorded",
@@ -140,8 +155,10 @@ def _findings_table(findings: list[Finding]) -> Table:
         title_justify="left",
     )
     for f in findings:
+        source = [Text(str(v)) for v in _source(trail, f.id).values()]
         table.add_row(
             Text(str(f.id)),
+            *source,
             Text(f.kind),
             Text(f.field),
             _value(f.recorded),

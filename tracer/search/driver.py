@@ -179,7 +179,12 @@ def validate(instance: Instance, settings: SearchSettings) -> None:
         raise PrunetrailError(
             f"{instance.name} has {n} cities: an exact search of more than {limit} cities "
             f"with the {settings.bound} bound may not finish in any useful time. "
-            "Give --max-nodes or --time-limit to record a bounded part of it."
+            "Give --max-nodes or --time-limit to record a bounded part of it"
+            + (
+                f", or use --bound {PENALTIES} (exact up to {PENALTIES_CITY_LIMIT} cities)."
+                if n <= PENALTIES_CITY_LIMIT and settings.bound != PENALTIES
+                else "."
+            )
         )
     if settings.cutoff < 0:
         raise PrunetrailError("the cutoff must be 0 or more")

@@ -375,7 +375,7 @@ def run_kernel(
     NODE_LIMIT. All state is in the arrays, so calling again resumes."""
     n = dist.shape[0]
     n_prefix = prefix.shape[0]
-    cap = rec.decision.shape[0]
+    cap = rec.decision.shape[0]  # rows of the record buffer
     ev_cap = ev.at.shape[0]
     path = sc.path
     visited = sc.visited
@@ -383,13 +383,25 @@ def run_kernel(
     members = sc.members
     match_at = sc.match_at
     child_pos = sc.child_pos
+    key = sc.key
+    rest = sc.rest
+    # the record buffer's columns, unpacked once (each a plain array in the loop)
+    b_city = rec.city
+    b_depth = rec.depth
+    b_partial = rec.partial
+    b_tree = rec.tree
+    b_link_in = rec.link_in
+    b_link_in_city = rec.link_in_city
+    b_link_out = rec.link_out
+    b_link_out_city = rec.link_out_city
+    b_decision = rec.decision
     if state[S_STARTED] == 0:
         state[S_STARTED] = 1
         path[0] = 0
         visited[:] = False
         visited[0] = True
         partial_at[0] = 0.0
-        sc.key[:] = np.inf
+        key[:] = np.inf
         match_at[0] = 1 if prefix[0] == 0 else 0
         state[S_DEPTH] = 0
         state[S_PHASE] = _ENTER
@@ -494,20 +506,20 @@ def run_kernel(
                     if last != 0:
                         members[cnt] = 0
                         cnt += 1
-                tree = _tree_weight(dist, members, cnt, sc.key, sc.rest, stale, squared)
+                tree = _tree_weight(dist, members, cnt, key, rest, stale, squared)
                 bound = partial + tree + lin + lout
                 decision = _PRUNE if bound >= inc else _EXPAND
             counts[decision] += 1
             if keep:
-                rec.city[fill] = last
-                rec.depth[fill] = d
-                rec.partial[fill] = partial
-                rec.tree[fill] = tree
-                rec.link_in[fill] = lin
-                rec.link_in_city[fill] = lin_city
-                rec.link_out[fill] = lout
-                rec.link_out_city[fill] = lout_city
-                rec.decision[fill] = decision
+                b_city[fill] = last
+                b_depth[fill] = d
+                b_partial[fill] = partial
+                b_tree[fill] = tree
+                b_link_in[fill] = lin
+                b_link_in_city[fill] = lin_city
+                b_link_out[fill] = lout
+                b_link_out_city[fill] = lout_city
+                b_decision[fill] = decision
                 if penalised:
                     rec.penalty[fill] = penalty
                     row = rec.pi[fill]

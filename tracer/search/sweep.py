@@ -73,6 +73,7 @@ class SweepJob:
 
     @property
     def counted(self) -> bool:
+        """Whether this is the cell's counted run (else a timed one)."""
         return self.repeat == COUNTED
 
 
@@ -96,7 +97,6 @@ class _DepthCounter:
     """A sink that keeps only nodes per depth × decision (one bincount per block)."""
 
     def __init__(self, n: int) -> None:
-        self.n = n
         self.flat = np.zeros(n * _DECISIONS, dtype=np.int64)
 
     def write_nodes(self, columns: dict[str, NDArray[Any]]) -> None:

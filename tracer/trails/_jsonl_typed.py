@@ -10,10 +10,9 @@ and the field at fault. So the messages are the same whichever path reads a file
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Any, Literal, cast
+from typing import Any, Literal
 
 import msgspec
 import numpy as np
@@ -92,12 +91,12 @@ def as_map(line: BestLine | EndLine) -> dict[str, Any]:
 class NodeBatch:
     """Checked values of consecutive node lines, ready to append to the importer's columns."""
 
-    ident: list[int]
-    parent_id: list[int]
-    city: list[int]
-    decision: list[int]
+    ident: Sequence[int]
+    parent_id: Sequence[int]
+    city: Sequence[int]
+    decision: Sequence[int]
     lengths: dict[str, NDArray[np.float64]]
-    link_city: dict[str, list[int]]
+    link_city: dict[str, NDArray[np.intc]]
 
     def rows(self, lo: int, hi: int) -> NodeBatch:
         """Rows lo..hi-1."""
@@ -111,9 +110,12 @@ class NodeBatch:
         )
 
 
-def _optional(values: Sequence[float | None]) -> NDArray[np.float64] | None:
-    """Values as float64 (NaN where absent), or None if one is out of range."""
-    array = np.array([math.nan if v is None else v for v in values], dtype=np.float64)
+_ABSENT_LINK = (None, None)
+
+
+def _lengths(values: Sequence[float | None]) -> NDArray[np.float64] | None:
+    """Values as float64 (None becomes NaN: absent), or None if one is out of range."""
+    array = np.array(values, dtype=np.float64)
     if (np.abs(array) >= MAX_LENGTH).any():  # NaN compares False: absent is fine
         return None
     return array
@@ -133,20 +135,19 @@ def node_batch(
     count = len(nodes)
     if not count or first_visit + count > max_nodes:
         return None
-    if any(node.path is not _UNSET for node in nodes):
-        return None
+    # one list comprehension per field: faster than transposing tuples of every field
+    path = [node.path for node in nodes]
     ident = [node.id for node in nodes]
-    given_city = [node.city for node in nodes]
-    given_parent = [node.parent for node in nodes]
-    if _UNSET in given_city or _UNSET in given_parent:
+    parent: Sequence[Any] = [node.parent for node in nodes]
+    city: Sequence[Any] = [node.city for node in nodes]
+    if path.count(_UNSET) != count or _UNSET in city or _UNSET in parent:
         return None
     if first_visit == 0:
-        if given_parent[0] is not None or given_city[0] != 0:
+        if parent[0] is not None or city[0] != 0:
             return None
-        given_parent[0] = 0
-    if None in given_parent:
+        parent = (0, *parent[1:])
+    if None in parent:
         return None
-    city, parent = cast(list[int], given_city), cast(list[int], given_parent)
     if min(ident) < MIN_NODE_ID or max(ident) > MAX_NODE_ID:
         return None
     if min(parent) < MIN_NODE_ID or max(parent) > MAX_NODE_ID:
@@ -154,29 +155,29 @@ def node_batch(
     if min(city) < 0 or max(city) >= n:
         return None
     lengths: dict[str, NDArray[np.float64]] = {}
-    for key, values in (
+    for key, given in (
         (PARTIAL, [node.partial for node in nodes]),
         (TREE, [node.tree for node in nodes]),
         (BOUND, [node.bound for node in nodes]),
         ("length", [node.length for node in nodes]),
     ):
-        checked = _optional(values)
+        checked = _lengths(given)
         if checked is None:
             return None
         lengths[key] = checked
-    link_city: dict[str, list[int]] = {}
+    link_city: dict[str, NDArray[np.intc]] = {}
     for key, links in (
         (LINK_IN, [node.link_in for node in nodes]),
         (LINK_OUT, [node.link_out for node in nodes]),
     ):
-        cities = [NO_CITY if link is None else link[0] for link in links]
-        given = [link[0] for link in links if link is not None]
-        if given and (min(given) < 0 or max(given) >= n):
+        cities, link_lengths = zip(*[link or _ABSENT_LINK for link in links], strict=True)
+        as_float = np.array(cities, dtype=np.float64)  # an absent city is NaN
+        if ((as_float < 0) | (as_float >= n)).any():
             return None
-        checked = _optional([None if link is None else link[1] for link in links])
+        checked = _lengths(link_lengths)
         if checked is None:
             return None
         lengths[key] = checked
-        link_city[key] = cities
+        link_city[key] = np.where(np.isnan(as_float), NO_CITY, as_float).astype(np.intc)
     decision = [_CODES[node.decision] for node in nodes]
     return NodeBatch(ident, parent, city, decision, lengths, link_city)

@@ -55,6 +55,9 @@ from tracer.base import (
     MIN_NODE_ID,
     NODE,
     PARTIAL,
+    SOURCE_COLUMNS,
+    SOURCE_ID,
+    SOURCE_LINE,
     STATUSES,
     TREE,
     VISIT,
@@ -146,7 +149,7 @@ class _Columns:
         for key, values in batch.lengths.items():
             self.lengths[key].frombytes(values.tobytes())
         for key, cities in batch.link_city.items():
-            self.link_city[key].extend(cities)
+            self.link_city[key].frombytes(cities.tobytes())
 
 
 @dataclass
@@ -476,18 +479,54 @@ class _Reading:
         while chunk := handle.read(_CHUNK_BYTES):
             lines = (tail + chunk).split(b"\n")
             tail = lines.pop()
-            longest = max(map(len, lines), default=0)
-            if longest > MAX_LINE_BYTES or len(tail) > MAX_LINE_BYTES:
-                at = next((i for i, line in enumerate(lines) if len(line) > MAX_LINE_BYTES), None)
-                self.take(number + 1, lines[: len(lines) if at is None else at])
-                where = number + 1 + (len(lines) if at is None else at)
-                raise InputError(
-                    self.path, f"line is longer than {MAX_LINE_BYTES} bytes", line=where
-                )
-            self.take(number + 1, lines)
+            self.feed(number + 1, lines)
             number += len(lines)
+            if len(tail) > MAX_LINE_BYTES:
+                raise InputError(
+                    self.path, f"line is longer than {MAX_LINE_BYTES} bytes", line=number + 1
+                )
         if tail:
             self.slow(number + 1, tail, False)
+
+    def feed(self, first: int, lines: list[bytes]) -> None:
+        """Take whole lines (without their newlines) numbered from `first`."""
+        done = 0
+        while self.parser.instance is None and done < len(lines):  # the header, on its own
+            if len(lines[done]) > MAX_FRAME_BYTES:
+                message = f"the header line is longer than {MAX_FRAME_BYTES} bytes"
+                raise InputError(self.path, message, line=first + done)
+            self.slow(first + done, lines[done], True)
+            done += 1
+        if done:
+            first, lines = first + done, lines[done:]
+        if max(map(len, lines), default=0) > MAX_LINE_BYTES:
+            at = next(i for i, line in enumerate(lines) if len(line) > MAX_LINE_BYTES)
+            self.take(first, lines[:at])
+            raise InputError(
+                self.path, f"line is longer than {MAX_LINE_BYTES} bytes", line=first + at
+            )
+        self.take(first, lines)
+
+    def parsed(self) -> _Parsed:
+        """What has been read so far.
+
+        Raises:
+            InputError: no header line was read.
+        """
+        parser, notice = self.parser, self.notice
+        if parser.instance is None:
+            raise InputError(self.path, "no header line: not a JSON Lines trace")
+        if notice is None and parser.status is None:
+            notice = f"no end line: a live or crashed run ({len(parser.nodes)} nodes so far)"
+        return _Parsed(
+            str(self.path),
+            parser.instance,
+            parser.solver,
+            parser.nodes,
+            parser.best,
+            parser.status,
+            notice,
+        )
 
     def slow(self, number: int, raw: bytes, whole: bool) -> bool:
         """Check one line field by field; False if the file stops inside it."""
@@ -524,10 +563,15 @@ class _Reading:
         if parser.instance is None or parser.status is not None or not lines:
             return not lines
         try:
-            decoded = [decode_line(raw) for raw in lines]
+            decoded = list(map(decode_line, lines))
         except (msgspec.DecodeError, msgspec.ValidationError):
             return False
-        others = [i for i, line in enumerate(decoded) if type(line) is not NodeLine]
+        kinds = list(map(type, decoded))
+        others = (
+            []
+            if kinds.count(NodeLine) == len(kinds)
+            else [i for i, kind in enumerate(kinds) if kind is not NodeLine]
+        )
         if any(type(decoded[i]) is HeaderLine for i in others) or any(
             type(decoded[i]) is EndLine for i in others if i != len(lines) - 1
         ):
@@ -581,20 +625,7 @@ def _parse(path: Path) -> _Parsed:
     reading = _Reading(path)
     with handle, _collector_paused():
         reading.run(handle)
-    parser, notice = reading.parser, reading.notice
-    if parser.instance is None:
-        raise InputError(path, "no header line: not a JSON Lines trace")
-    if notice is None and parser.status is None:
-        notice = f"no end line: a live or crashed run ({len(parser.nodes)} nodes so far)"
-    return _Parsed(
-        str(path),
-        parser.instance,
-        parser.solver,
-        parser.nodes,
-        parser.best,
-        parser.status,
-        notice,
-    )
+    return reading.parsed()
 
 
 # -- relations between lines, vectorised -----------------------------------------------------
@@ -830,6 +861,7 @@ def _build(parsed: _Parsed) -> Trail:
     in_preorder = bool(np.array_equal(tree.pre, np.arange(tree.count)))
     if not in_preorder:
         names += (VISIT,)
+    names += SOURCE_COLUMNS  # findings name the node by the solver's id and its line
     recorded = [v[~np.isnan(v)] for v in lengths.values()] + [
         np.array([b.length for b in parsed.best])
     ]
@@ -846,6 +878,8 @@ def _build(parsed: _Parsed) -> Trail:
         LINK_IN_CITY: (link_city[LINK_IN], link_city[LINK_IN] == _NO_CITY),
         LINK_OUT_CITY: (link_city[LINK_OUT], link_city[LINK_OUT] == _NO_CITY),
         VISIT: (np.arange(tree.count), np.zeros(tree.count, dtype=np.bool_)),
+        SOURCE_ID: (tree.ident, np.zeros(tree.count, dtype=np.bool_)),
+        SOURCE_LINE: (tree.line, np.zeros(tree.count, dtype=np.bool_)),
     }
     for key, values in lengths.items():
         source[key] = (values, np.isnan(values))
@@ -890,6 +924,75 @@ def _updates(parsed: _Parsed, tree: _Tree) -> list[BestUpdate]:
             )
         out.append(BestUpdate(at=v + 1, node=int(tree.pre[v]), length=b.length, tour=b.tour))
     return sorted(out, key=lambda u: u.at)
+
+
+class JsonlFollower:
+    """Follows a JSON Lines trace that is still being written, as `TrailFollower` follows a
+    trail: `poll()` reads the lines appended since the last call.
+
+    Each poll parses only the new whole lines (an unfinished last line waits for the next
+    poll) and rebuilds `trail` from everything read, since a new node can change the
+    pre-order ids of a search that is not depth-first.
+    """
+
+    def __init__(self, path: str | Path) -> None:
+        self.path = Path(path)
+        self._handle: BinaryIO = open(self.path, "rb")  # noqa: SIM115 (closed in close())
+        self._reading = _Reading(self.path)
+        self._tail = b""
+        self._number = 0
+        self._trail: Trail | None = None
+        self._best_seen = 0
+
+    def poll(self) -> tuple[int, int, list[BestUpdate]]:
+        """Read what was appended since the last call.
+
+        Returns:
+            (first new node id, number of new nodes, new incumbent updates); when new nodes
+            renumber old ones (a search that is not depth-first), the first id is 0 and the
+            count is every node.
+
+        Raises:
+            InputError: a malformed line, naming its line and field.
+        """
+        data = self._handle.read()
+        before = self._trail
+        if data:
+            lines = (self._tail + data).split(b"\n")
+            self._tail = lines.pop()
+            with _collector_paused():
+                self._reading.feed(self._number + 1, lines)
+            self._number += len(lines)
+            limit = MAX_FRAME_BYTES if self._reading.parser.instance is None else MAX_LINE_BYTES
+            if len(self._tail) > limit:
+                message = f"line is longer than {limit} bytes"
+                raise InputError(self.path, message, line=self._number + 1)
+            if lines and self._reading.parser.instance is not None:
+                self._trail = _build(self._reading.parsed())
+        trail = self._trail
+        if trail is None or trail is before:
+            return (0 if before is None else before.count), 0, []
+        new_best = trail.best[self._best_seen :]
+        self._best_seen = len(trail.best)
+        old = 0 if before is None else before.count
+        kept = before is not None and all(
+            np.array_equal(trail.columns[c][:old], before.columns[c]) for c in before.columns
+        )
+        return (old, trail.count - old, new_best) if kept else (0, trail.count, trail.best)
+
+    @property
+    def header(self) -> TrailHeader | None:
+        """The header, once it has been read."""
+        return None if self._trail is None else self._trail.header
+
+    @property
+    def trail(self) -> Trail | None:
+        """Everything read so far (None before the header and a first line after it)."""
+        return self._trail
+
+    def close(self) -> None:
+        """Release the file."""
+        self._handle.close()
 
 
 def check_header(text: str, path: str | Path) -> None:

@@ -7,10 +7,11 @@ foreign solver's `.jsonl` directly, without an import step.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Protocol
 
-from tracer.base import FileKind, Trail, expect_kind
-from tracer.trails.jsonl import read_jsonl
-from tracer.trails.reader import read_trail
+from tracer.base import BestUpdate, FileKind, Trail, expect_kind, sniff
+from tracer.trails.jsonl import JsonlFollower, read_jsonl
+from tracer.trails.reader import TrailFollower, read_trail
 
 #: File suffix read as JSON Lines (any other file is read as a trail).
 JSONL_SUFFIX = ".jsonl"
@@ -31,3 +32,33 @@ def open_trail(path: str | Path) -> Trail:
     if kind == FileKind.JSON_LINES or (p.suffix.lower() == JSONL_SUFFIX and kind != FileKind.TRAIL):
         return read_jsonl(p)
     return read_trail(p)
+
+
+class Follower(Protocol):
+    """Follows a trace still being written (a trail, or JSON Lines): the same to a viewer."""
+
+    def poll(self) -> tuple[int, int, list[BestUpdate]]:
+        """(first new id, new nodes, new updates) since the last call.
+
+        Raises:
+            InputError: a corrupt frame or malformed line, naming where.
+        """
+        ...
+
+    @property
+    def trail(self) -> Trail | None:
+        """Everything read so far."""
+        ...
+
+    def close(self) -> None:
+        """Release the file."""
+        ...
+
+
+def follow_trail(path: str | Path) -> Follower:
+    """A follower for `path`: JSON Lines (by content or `.jsonl`) or a trail file."""
+    p = Path(path)
+    kind = sniff(p)
+    if kind == FileKind.JSON_LINES or (p.suffix.lower() == JSONL_SUFFIX and kind != FileKind.TRAIL):
+        return JsonlFollower(p)
+    return TrailFollower(p)

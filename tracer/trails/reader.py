@@ -405,7 +405,9 @@ def read_trail(path: str | Path) -> Trail:
     if frames.header is None:
         if corrupt is not None:
             raise corrupt
-        raise InputError(p, "empty or cut before its header: not a trail")
+        if size:
+            raise InputError(p, "stops inside its header frame: not a complete trail", offset=0)
+        raise InputError(p, "empty: not a trail")
     store = {c.name: np.empty(frames.total, dtype=c.dtype) for c in frames.header.columns}
     pos = 0
     for i, block in enumerate(frames.blocks):
