@@ -180,3 +180,12 @@ def test_info_tour_given_a_trail_as_tour(capsys, orchard_trail) -> None:
 def test_sniff_tells_kinds_apart(head: bytes, kind: FileKind) -> None:
     """The sniff names each kind of file from its first bytes."""
     assert sniff_bytes(head) == kind
+
+
+def test_the_script_entry_point_prints_json_errors_too(capsys) -> None:
+    """`prunetrail` (tui.cli:main, which adds the viewer's commands) shares the error path."""
+    from tui.cli import main as script_main
+
+    assert script_main(["check", str(ORCHARD), "--json"]) == 2
+    got = json.loads(capsys.readouterr().out)
+    assert got["file"] == str(ORCHARD) and "a TSPLIB text file" in got["error"]

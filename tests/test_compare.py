@@ -18,7 +18,7 @@ import pytest
 
 from tests.reference import instance_path
 from tests.test_stats import write_trail
-from tracer.analysis import InstanceMismatchError, TreeIndex, bound_values, compare_trails
+from tracer.analysis import InstanceMismatchError, TreeIndex, compare_trails
 from tracer.base import (
     CITY,
     DECISION,
@@ -28,6 +28,7 @@ from tracer.base import (
     Decision,
     Instance,
     Trail,
+    bound_values,
 )
 from tracer.cli import main
 from tracer.formats import load_instance

@@ -309,6 +309,7 @@ def test_jsonl_line_of_a_gigabyte_without_newline(tmp_path: Path) -> None:
     refused(lambda: read_jsonl(big), "huge.jsonl:2", "longer than")
 
 
+@pytest.mark.thorough
 def test_gigabyte_line_peak_rss_in_a_subprocess(tmp_path: Path) -> None:
     """The same 1 GiB line, read by `check` in its own process: peak RSS grows < 160 MiB."""
     big = tmp_path / "huge.jsonl"

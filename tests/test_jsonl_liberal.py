@@ -174,10 +174,10 @@ def test_only_the_solvers_own_bound_gets_structure_and_decision_checks(tmp_path:
 def test_typed_path_and_field_checks_read_the_same(tmp_path: Path, monkeypatch) -> None:
     """A real search's trace (TSPLIB gr17), with blank lines, reads the same on both paths."""
     instance = load_instance(instance_path("gr17"))
-    source = solve_to_trail(instance, tmp_path / "g.trail", SearchSettings(max_nodes=40_000))
+    source = solve_to_trail(instance, tmp_path / "g.trail", SearchSettings(max_nodes=20_000))
     lines = list(jsonl_lines(source))
     lines.insert(7, "")
-    lines.insert(20_000, "   ")
+    lines.insert(17_000, "   ")
     path = write(tmp_path / "g.jsonl", lines)
     fast = read_jsonl(path)
     monkeypatch.setattr(jsonl, "node_batch", lambda *args: None)  # every batch line by line
@@ -191,14 +191,14 @@ def test_typed_path_and_field_checks_read_the_same(tmp_path: Path, monkeypatch) 
 def test_typed_path_reports_the_same_line_and_field(tmp_path: Path) -> None:
     """A bad value deep in a long trace is named by line and field, as line by line."""
     instance = load_instance(instance_path("gr17"))
-    source = solve_to_trail(instance, tmp_path / "g.trail", SearchSettings(max_nodes=30_000))
+    source = solve_to_trail(instance, tmp_path / "g.trail", SearchSettings(max_nodes=20_000))
     lines = list(jsonl_lines(source))
-    bad = json.loads(lines[25_000])
+    bad = json.loads(lines[18_000])
     bad["city"] = 17
-    lines[25_000] = json.dumps(bad)
+    lines[18_000] = json.dumps(bad)
     with pytest.raises(InputError) as caught:
         read_jsonl(write(tmp_path / "bad.jsonl", lines))
-    assert caught.value.line == 25_001 and "'city'" in str(caught.value)
+    assert caught.value.line == 18_001 and "'city'" in str(caught.value)
 
 
 def test_recorder_accepts_the_solvers_own_bound(tmp_path: Path) -> None:

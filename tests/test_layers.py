@@ -25,6 +25,10 @@ TRACER = ROOT / "tracer"
 #: Adding a public name on purpose? Add it here too, in the same change.
 PUBLIC: dict[str, set[str]] = {
     "tracer.base": {
+        "SUBTRACTED_TERMS",
+        "bound_terms",
+        "bound_values",
+        "recorded_bound",
         "BEST",
         "BOUND",
         "BOUND_PARTS",
@@ -129,7 +133,12 @@ PUBLIC: dict[str, set[str]] = {
         "to_wire",
         "tree_shape",
     },
-    "tracer.formats": {"format_instance", "format_tour", "load_instance", "load_tour"},
+    "tracer.formats": {
+        "format_instance",
+        "format_tour",
+        "load_instance",
+        "load_tour",
+    },
     "tracer.trails": {
         "CorruptTrailError",
         "Follower",
@@ -182,7 +191,6 @@ PUBLIC: dict[str, set[str]] = {
         "LAYOUT_MAX_CITIES",
         "ORACLE_MAX_CITIES",
         "REL_TOL",
-        "SUBTRACTED_TERMS",
         "TERM_LABELS",
         "CityLayout",
         "Comparison",
@@ -202,8 +210,6 @@ PUBLIC: dict[str, set[str]] = {
         "TreeIndex",
         "WhyReport",
         "best_completions",
-        "bound_terms",
-        "bound_values",
         "city_layout",
         "compare_trails",
         "completion_table",
@@ -217,10 +223,9 @@ PUBLIC: dict[str, set[str]] = {
         "node_step",
         "parse_filter",
         "parse_stops",
-        "recheck",
         "reaches",
+        "recheck",
         "recompute_node",
-        "recorded_bound",
         "recorded_value",
         "remainder",
         "remainder_instance",

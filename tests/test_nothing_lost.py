@@ -4,6 +4,7 @@ trail that another process is still appending to."""
 from __future__ import annotations
 
 import errno
+import json
 import os
 import signal
 import subprocess
@@ -16,14 +17,16 @@ from typing import Any
 import numpy as np
 import pytest
 
-from tests.foreign_traces import solve_to_trail
+from tests.foreign_traces import jsonl_lines, solve_to_trail
 from tests.reference import instance_path
 from tracer.base import PrunetrailError, Trail
 from tracer.base.errors import InputError
 from tracer.cli import main
 from tracer.formats.load import load_instance
 from tracer.search.driver import SearchSettings
+from tracer.trails import follow_trail
 from tracer.trails import writer as writer_module
+from tracer.trails.jsonl import read_jsonl
 from tracer.trails.reader import CorruptTrailError, TrailFollower, read_trail
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -105,34 +108,43 @@ def test_full_disk_gives_a_clear_error_and_a_readable_trail(
         assert np.array_equal(column, whole.columns[name][: trail.count]), name
 
 
-def test_import_interrupted_keeps_the_previous_trail(tmp_path: Path) -> None:
+@pytest.mark.parametrize(
+    "sig", [signal.SIGINT, pytest.param(signal.SIGTERM, marks=pytest.mark.thorough)]
+)
+def test_import_interrupted_keeps_the_previous_trail(tmp_path: Path, sig: int) -> None:
     """SIGINT or SIGTERM while import reads (from a pipe): exit 130, the old trail untouched."""
-    runs = []
-    for sig in (signal.SIGINT, signal.SIGTERM):
-        target = tmp_path / f"run-{sig.name}.trail"
-        target.write_bytes(b"previous contents")
-        fifo = tmp_path / f"feed-{sig.name}.jsonl"
-        os.mkfifo(fifo)
-        proc = subprocess.Popen(
-            [sys.executable, "-m", "tracer.cli", "import", str(fifo), "-o", str(target)],
-            stdout=subprocess.PIPE,
-            stderr=subprocess.PIPE,
-            cwd=ROOT,
+    target = tmp_path / "run.trail"
+    target.write_bytes(b"previous contents")
+    fifo = tmp_path / "feed.jsonl"
+    os.mkfifo(fifo)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "tracer.cli", "import", str(fifo), "-o", str(target)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        cwd=ROOT,
+    )
+    deadline = time.monotonic() + 60
+    while True:  # a non-blocking open fails (ENXIO) until the importer opens its end
+        try:
+            fd = os.open(fifo, os.O_WRONLY | os.O_NONBLOCK)
+            break
+        except OSError:
+            assert proc.poll() is None, proc.communicate()[1].decode()
+            assert time.monotonic() < deadline, "the importer never opened the pipe"
+            time.sleep(0.05)
+    os.set_blocking(fd, True)
+    with os.fdopen(fd, "w") as feed:
+        feed.write(
+            '{"kind": "header", "instance": {"coords": [[0, 0], [1, 0], [1, 1]], '
+            '"metric": "EUC_2D"}, "solver": {"bound": "tree+links"}}\n'
         )
-        runs.append((sig, target, fifo, proc))
-    for sig, target, fifo, proc in runs:
-        with open(fifo, "w") as feed:  # returns once the importer has opened the pipe
-            feed.write(
-                '{"kind": "header", "instance": {"coords": [[0, 0], [1, 0], [1, 1]], '
-                '"metric": "EUC_2D"}, "solver": {"bound": "tree+links"}}\n'
-            )
-            feed.flush()
-            time.sleep(0.2)  # the importer is now blocked reading the pipe
-            proc.send_signal(sig)
-            _, err = proc.communicate(timeout=60)
-        assert proc.returncode == 130, (sig, err.decode())
-        assert b"interrupted" in err and b"Traceback" not in err
-        assert target.read_bytes() == b"previous contents"
+        feed.flush()
+        time.sleep(0.2)  # the importer is now blocked reading the pipe
+        proc.send_signal(sig)
+        _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err.decode()
+    assert b"interrupted" in err and b"Traceback" not in err
+    assert target.read_bytes() == b"previous contents"
 
 
 _CHUNKED_WRITER = textwrap.dedent(
@@ -189,6 +201,44 @@ def test_follower_never_reports_a_partial_frame_as_corrupt(
     for name, column in gr17.columns.items():
         assert np.array_equal(final.columns[name], column), name
     assert counts == sorted(counts) and len(set(counts)) > 1
+
+
+def test_jsonl_follower_reads_a_trace_being_written(gr17: Trail, tmp_path: Path) -> None:
+    """A JSON Lines trace appended in odd-sized pieces is followed without an error; the
+    nodes arrive in order and the end equals reading the finished file."""
+    source = tmp_path / "whole.jsonl"
+    source.write_text("".join(line + "\n" for line in jsonl_lines(_head(gr17, 30_000))))
+    live = tmp_path / "live.jsonl"
+    live.touch()
+    proc = subprocess.Popen([sys.executable, "-c", _CHUNKED_WRITER, str(source), str(live), "3"])
+    follower = follow_trail(live)
+    seen = 0
+    try:
+        while True:
+            finished = proc.poll() is not None
+            first, added, _ = follower.poll()  # raises on a partial line taken as malformed
+            assert first == seen
+            seen += added
+            if finished:
+                break
+            time.sleep(0.005)
+        first, added, _ = follower.poll()
+        seen += added
+    finally:
+        proc.wait(timeout=60)
+        follower.close()
+    final = follower.trail
+    assert final is not None and final.end is not None and seen == final.count == 30_000
+    whole = read_jsonl(source)
+    for name, column in whole.columns.items():
+        assert np.array_equal(final.columns[name], column), name
+
+
+def _head(trail: Trail, count: int) -> Trail:
+    """The first `count` nodes of a depth-first trail, with the updates among them."""
+    columns = {name: column[:count] for name, column in trail.columns.items()}
+    best = [b for b in trail.best if b.at < count]
+    return Trail(trail.path, trail.header, columns, best, None)
 
 
 @pytest.mark.thorough
@@ -252,3 +302,34 @@ def test_writer_error_is_our_error_type(tmp_path: Path, monkeypatch: pytest.Monk
         writer = writer_module.TrailWriter(path, header)
         writer.close(EndInfo("complete", 0, 0, {}, 0.0, None))
     assert str(path) in str(caught.value)
+
+
+@pytest.mark.thorough
+@pytest.mark.parametrize("sig", [signal.SIGINT, signal.SIGTERM])
+def test_sweep_signal_to_the_process_group_keeps_the_rows(tmp_path: Path, sig: int) -> None:
+    """Ctrl-C or SIGTERM to a sweep's whole process group (as a terminal or `timeout` sends
+    it): exit 130, no traceback, the CSV holds every finished row and reads."""
+    import csv
+
+    prefix = tmp_path / "rows"
+    args = [sys.executable, "-m", "tracer.cli", "sweep", str(instance_path("burma14"))]
+    args += [str(instance_path("gr17")), "--cutoffs", "0-8", "--repeat", "3"]
+    args += ["--workers", "2", "--out", str(prefix), "--json"]
+    proc = subprocess.Popen(
+        args, stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=ROOT, start_new_session=True
+    )
+    rows_file = Path(f"{prefix}.csv")
+    deadline = time.monotonic() + 300
+    while time.monotonic() < deadline and proc.poll() is None:
+        if rows_file.exists() and len(rows_file.read_text().splitlines()) >= 2:
+            break
+        time.sleep(0.2)
+    assert proc.poll() is None, "the sweep finished before it could be interrupted"
+    os.killpg(proc.pid, sig)
+    out, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err.decode()[-2000:]
+    assert b"Traceback" not in err
+    with open(rows_file, newline="") as handle:
+        rows = list(csv.DictReader(handle))
+    assert rows and all(row["instance"] for row in rows)
+    assert json.loads(out)["interrupted"] is True

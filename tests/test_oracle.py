@@ -22,11 +22,10 @@ from tracer.analysis import (
     OracleSizeError,
     TreeIndex,
     best_completions,
-    bound_values,
     completion_table,
 )
 from tracer.analysis.oracle import table_bytes
-from tracer.base import CITY, DECISION, DEPTH, Decision, InputError, Instance, Trail
+from tracer.base import CITY, DECISION, DEPTH, Decision, InputError, Instance, Trail, bound_values
 from tracer.cli import main
 from tracer.trails import open_trail
 

@@ -18,7 +18,7 @@ from tests.sinks import Collect
 from tracer.analysis.rechecking import recheck
 from tracer.base.errors import PrunetrailError
 from tracer.base.frames import EndInfo
-from tracer.base.header import PENALTIES, PenaltySettings, from_wire, to_wire
+from tracer.base.header import PENALTIES, HeaderError, PenaltySettings, from_wire, to_wire
 from tracer.base.instance import Instance, explicit_instance
 from tracer.base.metrics import EUCLIDEAN
 from tracer.base.schema import DECISION_COLUMNS, ENGINE_COLUMNS, PENALTY_COLUMNS, Decision
@@ -266,3 +266,20 @@ def test_solve_and_check_commands(capsys, tmp_path: Path) -> None:
     assert read_trail(trail).header.solver.penalties.steps == 20
     assert main(["check", str(trail), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["wrong"] == 0
+
+
+@pytest.mark.parametrize(
+    ("column", "message"),
+    [
+        (["pi", "<i4", 5], "must hold n = 17 values"),
+        (["pi", "<i4"], "must be given as \\[name, dtype, n\\]"),
+        (["tree", "<f8", 17], "must be given as \\[name, dtype\\]"),
+    ],
+)
+def test_header_refuses_bad_row_columns(load_reference, column: list[Any], message: str) -> None:
+    """A row column must say it holds n values; no other column may claim a width."""
+    header = trail_header(load_reference("gr17"), PEN, None, "test")
+    wire = to_wire(header)
+    wire["columns"] = [c for c in wire["columns"] if c[0] not in ("pi", column[0])] + [column]
+    with pytest.raises(HeaderError, match=message):
+        from_wire(wire)

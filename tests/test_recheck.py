@@ -161,7 +161,8 @@ def test_clean_decisions_only(load_reference: LoadReference, record: Record) -> 
 def test_decisions_only_still_judges_decisions(
     load_reference: LoadReference, record: Record
 ) -> None:
-    """With no numbers recorded, a flipped decision is still found from recomputed bounds."""
+    """With no numbers recorded, a flipped decision is still found from recomputed bounds
+    (a prune turned expand is a missed prune: wrong only when strict)."""
     trail = _copy(record(load_reference("burma14"), SearchSettings(cutoff=3, record="decisions")))
     index = TreeIndex(trail.columns, trail.best)
     leaves = np.flatnonzero(
@@ -169,7 +170,9 @@ def test_decisions_only_still_judges_decisions(
     )
     node = int(leaves[len(leaves) // 2])
     trail.columns[DECISION][node] = Decision.EXPAND
-    report = recheck(trail)
+    loose = recheck(trail)
+    assert (loose.wrong, loose.missed_prunes, loose.missed_ids.tolist()) == (0, 1, [node])
+    report = recheck(trail, strict=True)
     assert report.wrong == 1
     assert (report.first[0].id, report.first[0].kind) == (node, "decision")
     assert (report.first[0].recorded, report.first[0].recomputed) == ("expand", "prune")
@@ -214,7 +217,8 @@ def test_clean_random_cities(record: Record, metric: str, cutoff: int) -> None:
     ("metric", "scale", "accepted"), [("euclidean", 0.3, True), ("EUC_2D", 30, False)]
 )
 def test_tie_with_the_incumbent(record: Record, metric: str, scale: float, accepted: bool) -> None:
-    """Bound equal to the incumbent: float lengths accept either decision, integers only prune."""
+    """Bound equal to the incumbent: float lengths accept either decision, integers only prune
+    (strictly: otherwise the expand is a missed prune)."""
     corners = np.array([[0, 0], [1, 0], [1, 1], [0, 1], [2, 0], [2, 1]], dtype=np.float64)
     instance = Instance(name=f"ladder-{metric}", metric=metric, coords=corners * scale)
     clean = record(instance, SearchSettings(cutoff=0))
@@ -222,8 +226,9 @@ def test_tie_with_the_incumbent(record: Record, metric: str, scale: float, accep
     assert clean.columns[DECISION][0] == Decision.PRUNE
     trail = _copy(clean)
     trail.columns[DECISION][0] = Decision.EXPAND
-    report = recheck(trail)
+    report = recheck(trail, strict=True)
     assert report.wrong == (0 if accepted else 1)
+    assert recheck(trail).missed_prunes == (0 if accepted else 1)
 
 
 @pytest.mark.parametrize("n", [80, 130])
@@ -374,7 +379,7 @@ def test_hand_corruption_is_caught(
     index = TreeIndex(clean.columns, clean.best)
     node = pick(trail, index)
     change(trail, node, index)
-    report = recheck(trail)
+    report = recheck(trail, strict=True)
     assert report.first[0].id == node
     assert report.first[0].kind == kind
     assert report.by_kind[kind] >= 1
@@ -536,7 +541,7 @@ def test_foreign_bound(load_reference: LoadReference, record: Record) -> None:
     trail.columns[TREE][:] = 0
     assert recheck(trail).wrong == 0
     trail.columns[DECISION][node] = Decision.EXPAND
-    report = recheck(trail)
+    report = recheck(trail, strict=True)
     assert report.wrong == 1
     assert (report.first[0].id, report.first[0].kind) == (node, "decision")
 

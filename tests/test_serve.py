@@ -131,7 +131,7 @@ def test_serve_and_screenshot_do_not_go_together(capsys: pytest.CaptureFixture[s
 def test_serve_prints_the_loopback_address(served: tuple[str, str]) -> None:
     """The first line printed names the loopback address to open."""
     first, url = served
-    assert url in first and "serving the viewer" in first
+    assert first.startswith("serving prunetrail view meter.trail at ") and url in first
 
 
 async def _page_and_session(url: str) -> tuple[str, int, str]:

@@ -283,6 +283,29 @@ def test_different_lengths_are_warned_about(cells) -> None:
     assert len(warnings) == 1 and cells[1][0] in warnings[0]
 
 
+def test_planted_fault_lengths_differ_loudly(capsys) -> None:
+    """A fault that cuts the optimal branch finds other lengths at other cutoffs: a WARNING
+    on stderr, in the JSON, and exit 1 (burma14 from no incumbent: 3381 at cutoff 0)."""
+    argv = ["sweep", str(instance_path("burma14")), "--fault", "tree-spans-ends"]
+    argv += ["--start", "none", "--cutoffs", "0,3", "--repeat", "1", "--workers", "1"]
+    assert main([*argv, "--json"]) == 1
+    captured = capsys.readouterr()
+    got = json.loads(captured.out)
+    assert "WARNING: burma14" in captured.err and len(got["warnings"]) == 1
+    lengths = {row["cutoff"]: row["length"] for row in got["rows"]}
+    assert lengths[3] == TSPLIB_OPTIMUM["burma14"] < lengths[0]
+
+
+def test_text_report_has_table_chart_and_recommendation(capsys) -> None:
+    """The human report: the table, the chart and one recommendation line per instance."""
+    argv = ["sweep", "--random", "8:1:4", "--cutoffs", "0-2", "--repeat", "1", "--workers", "1"]
+    assert main(argv) == 0
+    text = capsys.readouterr().out
+    assert "median" in text and "time ÷ each instance's best, by cutoff" in text
+    assert "uniform8-s4-0: cutoff" in text and "clustered8-s4-0: cutoff" in text
+    assert "overall: cutoff" in text
+
+
 def test_random_families_and_argument_parsing() -> None:
     """Families are seeded and clustered cities lie closer together; bad lists say why."""
     first, again = random_instances(12, 2, 7), random_instances(12, 2, 7)

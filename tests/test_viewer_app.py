@@ -31,11 +31,12 @@ from tracer.analysis import (
 from tracer.base import DECISION, DECISION_NAMES, LINK_IN, LINK_OUT, PARTIAL, TREE
 from tracer.cli import main as tracer_main
 from tracer.trails import TrailWriter, open_trail
-from tui.app import PrunetrailApp
+from tui.app import PrunetrailApp, RecheckProgress
 from tui.bookmarks import sidecar_path
 from tui.cli import main as viewer_main
 from tui.dialogs import BookmarksScreen, FilterDialog, GoToDialog, HelpScreen, StopDialog
 from tui.node_list import NodeList
+from tui.stats_screen import StatsScreen
 from tui.why_screen import WhyScreen
 
 SIZE = (150, 44)
@@ -140,7 +141,7 @@ async def test_every_move_binding(faulty):
 
 @pytest.mark.asyncio
 async def test_panel_toggles_help_speed_and_play(faulty):
-    """1/2/3 hide and show panels, ? opens help, +/- change speed, space plays and pauses."""
+    """1/2/3 toggle panels, ? help, t stats, +/- speed, space plays and pauses."""
     app = _app(faulty)
     async with app.run_test(size=SIZE) as pilot:
         bound, city_map, outline = (app.query_one(s) for s in ("#bound", "#map", "#outline"))
@@ -160,6 +161,10 @@ async def test_panel_toggles_help_speed_and_play(faulty):
         assert "ratio 0.98..1" in help_text
         await pilot.press("escape")
         assert not isinstance(app.screen, HelpScreen)
+        await pilot.press("t")
+        assert isinstance(app.screen, StatsScreen)
+        await pilot.press("escape")
+        assert not isinstance(app.screen, StatsScreen)
         speed = app._speed
         await pilot.press("plus")
         assert app._speed == speed + 1
@@ -167,10 +172,10 @@ async def test_panel_toggles_help_speed_and_play(faulty):
         assert app._speed == speed - 1
         app.stops = parse_stops("depth 99")
         await pilot.press("space")
-        assert app._timer is not None
+        assert app._play_timer is not None
         await pilot.pause(0.8)
         await pilot.press("space")
-        assert app._timer is None
+        assert app._play_timer is None
         assert app.cursor > 0
 
 
@@ -385,6 +390,8 @@ def test_view_reports_bad_input_in_one_line(faulty, tmp_path, capsys):
     assert "--at 999999" in capsys.readouterr().err
     assert viewer_main(["view", str(faulty), "--filter", "depth 3..1"]) == 2
     assert "bad filter" in capsys.readouterr().err
+    assert viewer_main(["view", str(faulty), "--prefix", "0 0 0"]) == 2
+    assert "no node has this path" in capsys.readouterr().err
     junk = tmp_path / "junk.trail"
     junk.write_bytes(b"\x00\x01 not msgpack")
     assert viewer_main(["view", str(junk)]) == 2
@@ -443,7 +450,7 @@ async def test_live_follow_while_a_writer_appends(faulty, tmp_path):
 
 @pytest.mark.asyncio
 async def test_markup_in_names_is_shown_literally(tmp_path):
-    """An instance named with Rich markup and a link tag appears exactly as typed."""
+    """An instance named with Rich markup and a link tag appears as typed; `q` quits."""
     name = "[bold red]x[/][link=https://example.invalid]y[/link]"
     tsp = tmp_path / "odd.tsp"
     lines = [f"NAME : {name}", "TYPE : TSP", "DIMENSION : 5", "EDGE_WEIGHT_TYPE : EUC_2D"]
@@ -454,7 +461,10 @@ async def test_markup_in_names_is_shown_literally(tmp_path):
     async with app.run_test(size=SIZE) as pilot:
         await pilot.pause()
         assert name in _plain_top(app)
-        await pilot.press("E")
+        await pilot.press("q")
+        await pilot.pause()
+    assert app.return_code == 0
+    assert not app.is_running
 
 
 @pytest.mark.asyncio
@@ -547,3 +557,18 @@ async def test_a_trail_with_no_nodes_yet_takes_every_key(faulty, tmp_path):
         assert app.model.count == 0
         assert "0 nodes" in _plain_top(app)
     writer.close(source.end)
+
+
+@pytest.mark.asyncio
+async def test_results_arriving_under_a_dialog_update_the_main_screen(faulty):
+    """Re-check results that arrive while a dialog is open reach the list, not the dialog."""
+    app = _app(faulty)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.press("f")
+        assert isinstance(app.screen, FilterDialog)
+        app.post_message(RecheckProgress(np.array([4, 9], dtype=np.int64), 100, 3000))
+        await pilot.pause()
+        assert app.model.wrong_ids.tolist() == [4, 9]
+        assert isinstance(app.screen, FilterDialog)
+        await pilot.press("escape")
+        assert "2 wrong" in _plain_top(app)

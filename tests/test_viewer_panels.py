@@ -25,14 +25,12 @@ from tracer.analysis import (
     TreeIndex,
     WhyReport,
     best_completions,
-    bound_values,
     city_layout,
     completion_table,
     explain,
     format_length,
     narrate,
     recheck,
-    recorded_bound,
     remainder,
     scaled_layout,
     spanning_tree,
@@ -256,15 +254,6 @@ def test_narration_per_decision(step: Step, words: str) -> None:
     assert words in narrate(step)
 
 
-def test_recorded_bound_matches_the_vectorised_rule(planted: PanelModel) -> None:
-    """The bound a sentence quotes is the one the node list shows (predicates.bound_values)."""
-    trail = planted.trail
-    rows = bound_values(trail, np.arange(trail.count))
-    for node in range(0, trail.count, 7):
-        mine = recorded_bound(trail, node)
-        assert (math.isnan(rows[node]) and mine is None) or mine == rows[node]
-
-
 def test_format_length() -> None:
     """Lengths are grouped by threes with spaces; absent and infinite have their own marks."""
     assert format_length(2914) == "2 914"
@@ -413,6 +402,22 @@ async def test_bound_panel_never_breaks_a_number(clean: PanelModel) -> None:
         lines = _text(panel, 30).splitlines()
     assert any("12 345 678" in line for line in lines)
     assert any("12 345 600" in line for line in lines)
+
+
+@pytest.mark.asyncio
+async def test_bound_panel_keeps_its_height_between_nodes(planted: PanelModel) -> None:
+    """A shorter node after a taller one leaves the panel's height (and the layout) alone."""
+    tall = int(planted.wrong_ids[0])
+    short = int(np.flatnonzero(planted.trail.columns["decision"] == Decision.TOUR)[0])
+    panel = BoundPanel()
+    async with PanelApp(panel).run_test(size=(70, 30)) as pilot:
+        panel.show(planted, tall)
+        await pilot.pause()
+        height = panel.size.height
+        panel.show(planted, short)
+        await pilot.pause()
+        assert panel.size.height == height
+        assert panel.view is not None and panel.view.node == short
 
 
 # -- the map -----------------------------------------------------------------------------

@@ -1,10 +1,10 @@
 """`why`: the node where a tour's branch was cut, and the right culprit.
 
-Optimal tours come from brute force over permutations (written here) and from TSPLIB's
-published optima (G. Reinelt, ORSA Journal on Computing 3(4):376-384, 1991;
-tests/reference.py). Faulty trails come from the engine's planted faults; the foreign trace
-comes from a small depth-first solver written in this file, with its own bound that is not
-a lower bound.
+Optimal lengths come from the Held-Karp of tests/oracles.py and TSPLIB's published optima
+(G. Reinelt, ORSA Journal on Computing 3(4):376-384, 1991; tests/reference.py), optimal
+tours from brute force over permutations (written here). Faulty trails come from the
+engine's planted faults; the foreign trace comes from a small depth-first solver written in
+this file, with its own bound that is not a lower bound.
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from tests.oracles import brute_force
+from tests.oracles import held_karp
 from tests.reference import TSPLIB_OPTIMUM, instance_path
 from tracer.analysis import (
     CULPRITS,
@@ -76,7 +76,7 @@ def test_planted_fault_gets_its_culprit(tmp_path: Path, fault: str) -> None:
     A fault that keeps the optimum gets `none` and the node where the tour was completed.
     """
     instance = _cities(12, 3)
-    optimum = brute_force(instance.matrix)
+    optimum = held_karp(instance.matrix)
     settings = SearchSettings(cutoff=0, fault=fault, bound=fault_bound(fault))
     trail = _record(tmp_path / "f.trail", instance, settings)
     index = TreeIndex(trail.columns, trail.best)
@@ -137,7 +137,7 @@ def _guessing_solver(path: Path, instance: Instance) -> tuple[int, list[int]]:
 
     Writes a JSON Lines trace with the solver's own `bound`; ids are given in visit order,
     which for a depth-first search is pre-order. Returns the id of the node where the
-    optimal tour's branch was pruned, and the optimal tour.
+    optimal tour's branch was pruned (the deeper of its two directions), and the tour.
     """
     d = instance.matrix.astype(int)
     n = instance.n
@@ -150,7 +150,8 @@ def _guessing_solver(path: Path, instance: Instance) -> tuple[int, list[int]]:
         }
     ]
     incumbent = [float("inf")]
-    cut = [-1]
+    directions = (optimal, [0, *reversed(optimal[1:])])
+    cuts: dict[int, tuple[int, int]] = {}
     count = itertools.count()
 
     def guess(path_: list[int]) -> int:
@@ -178,8 +179,9 @@ def _guessing_solver(path: Path, instance: Instance) -> tuple[int, list[int]]:
         bound = partial + guess(path_)
         if bound >= incumbent[0]:
             lines.append({**node, "bound": int(bound), "decision": "prune"})
-            if path_ == optimal[: len(path_)] and cut[0] < 0:
-                cut[0] = ident
+            for way, tour in enumerate(directions):
+                if path_ == tour[: len(path_)] and way not in cuts:
+                    cuts[way] = (len(path_), ident)
             return
         lines.append({**node, "bound": int(bound), "decision": "expand"})
         for city in sorted(set(range(n)) - set(path_), key=lambda c: (d[path_[-1], c], c)):
@@ -188,7 +190,9 @@ def _guessing_solver(path: Path, instance: Instance) -> tuple[int, list[int]]:
     visit([0], None, 0)
     lines.append({"kind": "end", "status": "complete"})
     path.write_text("".join(json.dumps(line) + "\n" for line in lines), encoding="utf-8")
-    return cut[0], optimal
+    # The branch is cut where the deeper of the tour's two directions was pruned.
+    deepest = max(cuts.values(), key=lambda c: c[0], default=(0, -1))
+    return deepest[1], optimal
 
 
 def test_foreign_bound_that_is_not_a_lower_bound(tmp_path: Path) -> None:
@@ -203,7 +207,8 @@ def test_foreign_bound_that_is_not_a_lower_bound(tmp_path: Path) -> None:
     report = explain(trail, index, tour=optimal, table=table)
     assert report.culprit == "inadmissible_bound", report.explanation
     assert report.cut_node == cut
-    assert report.path == optimal[: len(report.path)]
+    assert report.path == report.tour[: len(report.path)]
+    assert report.tour in (optimal, [0, *reversed(optimal[1:])])
     assert report.first_inadmissible is not None and report.first_inadmissible <= cut
     # Without the oracle the reference tour still proves the bound too high on its branch.
     alone = explain(trail, index, tour=optimal, table=None)
@@ -248,3 +253,34 @@ def test_cli_tour_file_and_text(tmp_path: Path, capsys: pytest.CaptureFixture[st
     assert main(["why", str(trail_path), "--tour", str(tour), "--oracle-memory", "0"]) == 0
     text = capsys.readouterr().out
     assert "culprit: none" in text and f"node {trail.best[-1].node}" in text
+
+
+def test_optimal_without_the_oracle_runs_a_clean_search(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """With the oracle off, --optimal takes the engine's clean search's tour: a clean trail
+    answers none at the node where that tour was completed (TSPLIB burma14, 3323)."""
+    instance = load_instance(instance_path("burma14"))
+    trail_path = tmp_path / "c.trail"
+    trail = _record(trail_path, instance, SearchSettings(cutoff=2))
+    status = main(["why", str(trail_path), "--optimal", "--oracle-memory", "0", "--json"])
+    data = json.loads(capsys.readouterr().out)
+    assert status == 0 and data["culprit"] == "none" and data["oracle"] is False
+    assert data["tour_length"] == TSPLIB_OPTIMUM["burma14"]
+    assert data["found_at"] is not None
+    assert trail.columns[DECISION][data["found_at"]] >= Decision.TOUR_BETTER
+    assert data["harmful_count"] is None
+
+
+@pytest.mark.parametrize("fault", ["squared-lengths", "tree-spans-ends"])
+def test_tsplib_fault_loses_the_published_optimum(tmp_path: Path, fault: str) -> None:
+    """burma14 from an infinite incumbent: these faults end above TSPLIB's 3323, and why
+    names the wrong tree at a pruned node of the optimal branch."""
+    instance = load_instance(instance_path("burma14"))
+    trail = _record(tmp_path / "t.trail", instance, SearchSettings(cutoff=1, fault=fault))
+    assert _final_length(trail) > TSPLIB_OPTIMUM["burma14"]
+    index = TreeIndex(trail.columns, trail.best)
+    report = explain(trail, index, tour=None, table=completion_table(instance))
+    assert report.culprit == "tree" and report.cut_node is not None
+    assert report.completion == TSPLIB_OPTIMUM["burma14"] < (report.incumbent or 0)
+    assert report.harmful_count

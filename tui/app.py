@@ -60,9 +60,7 @@ from tui.keys import keymap_path, load_keymap
 from tui.model import ViewerModel
 from tui.node_list import NodeList, NodeListHeader
 from tui.outline import BranchOutline
-from tui.stats_screen import StatsScreen
 from tui.walkthrough import walkthrough
-from tui.why_screen import WhyScreen
 
 #: Play speeds, in steps per second.
 SPEEDS = (1, 2, 5, 10, 20, 50, 100)
@@ -248,7 +246,7 @@ class PrunetrailApp(App[None]):
         self._stop_follow = threading.Event()
         self.stops = StopCondition(prune=True)
         self._speed = 3
-        self._timer: Timer | None = None
+        self._play_timer: Timer | None = None
         self._play_target: int | None = None
         self._why_report: WhyReport | None = None
         self._table: Any = None
@@ -276,6 +274,8 @@ class PrunetrailApp(App[None]):
             model.apply_filter(" and ".join(clauses))
         except FilterError as exc:
             raise InputError(model.trail.path, f"bad filter: {exc}") from None
+        if prefix and model.index.node_for_prefix(list(model.filter.prefixes[0])) is None:
+            raise InputError(model.trail.path, f"--prefix {prefix}: no node has this path")
         if at is not None and not 0 <= at < model.count:
             raise InputError(
                 model.trail.path, f"--at {at}: the trail has nodes 0..{model.count - 1}"
@@ -287,35 +287,49 @@ class PrunetrailApp(App[None]):
     # -- layout --------------------------------------------------------------------------
 
     def compose(self) -> ComposeResult:
-        yield Static(id="top")
+        # The main screen's widgets are kept by reference: `query_one` on the app searches
+        # the active screen, which is a dialog while one is open.
+        self._top = Static(id="top")
+        header = NodeListHeader(id="list-header")
+        self._node_list = NodeList(self.model, header, id="nodes")
+        self._side = Vertical(id="side")
+        self._panels: dict[str, BoundPanel | CityMap | BranchOutline] = {
+            "#bound": BoundPanel(id="bound"),
+            "#map": CityMap(id="map"),
+            "#outline": BranchOutline(id="outline", classes="hidden"),
+        }
+        self._work_label = Static(id="work-label")
+        self._work_bar = ProgressBar(id="work-bar", show_eta=False)
+        yield self._top
         with Horizontal(id="body"):
             with Vertical(id="list-pane"):
-                header = NodeListHeader(id="list-header")
                 yield header
-                yield NodeList(self.model, header, id="nodes")
-            with Vertical(id="side"):
-                yield BoundPanel(id="bound")
-                yield CityMap(id="map")
-                yield BranchOutline(id="outline", classes="hidden")
+                yield self._node_list
+            with self._side:
+                yield from self._panels.values()
         with Horizontal(id="work"):
-            yield Static(id="work-label")
-            yield ProgressBar(id="work-bar", show_eta=False)
+            yield self._work_label
+            yield self._work_bar
         yield Footer()
 
     def on_mount(self) -> None:
-        self.query_one("#nodes", NodeList).focus()
+        self._node_list.focus()
         for notice in self._notices:
             self.notify(notice, title="Notice", severity="warning", timeout=12, markup=False)
         self.goto(self._start)
         self._update_top()
         if self.model.count == 0:
             self.notify("the trail holds no nodes yet", markup=False)
+        if not self._background:
+            self._hide_work()
+        self.call_after_refresh(self._start_background)
+
+    def _start_background(self) -> None:
+        """Start the re-check, the oracle and the follower once the first screen is drawn."""
         if self._background:
             self._recheck()
             if self._oracle_fits():
                 self._oracle()
-        else:
-            self._hide_work()
         if self._follower is not None:
             self._follow(self._follower)
 
@@ -332,7 +346,7 @@ class PrunetrailApp(App[None]):
         if node is None or not 0 <= node < model.count:
             return
         model.cursor = node
-        nodes = self.query_one("#nodes", NodeList)
+        nodes = self._node_list
         nodes.cursor_row = model.rows.row_of(node)
         self._show_panels()
         self._update_top()
@@ -341,12 +355,11 @@ class PrunetrailApp(App[None]):
         node = self.model.cursor
         if not self.model.count:
             return
-        if not self.query_one("#side").display:
+        if not self._side.display:
             return
-        for selector in ("#bound", "#map", "#outline"):
-            panel = self.query_one(selector)
+        for panel in self._panels.values():
             if panel.display:
-                panel.show(self.model, node)  # type: ignore[attr-defined]
+                panel.show(self.model, node)
 
     def _update_top(self) -> None:
         model = self.model
@@ -375,11 +388,11 @@ class PrunetrailApp(App[None]):
             top.append(model.filter.describe(), style="italic")
             top.append(f"  keeps {len(model.rows):,}")
         top.append(f"   stop at: {self.stops.describe() or 'nothing'}", style="dim")
-        if self._timer is not None:
+        if self._play_timer is not None:
             top.append(f"   ▶ {SPEEDS[self._speed]}/s", style="bold cyan")
         else:
             top.append(f"   speed {SPEEDS[self._speed]}/s", style="dim")
-        self.query_one("#top", Static).update(top, layout=False)
+        self._top.update(top, layout=False)
 
     def on_node_list_picked(self, message: NodeList.Picked) -> None:
         self.goto(message.node)
@@ -398,7 +411,7 @@ class PrunetrailApp(App[None]):
         self.goto(self.model.step(self.cursor, -1))
 
     def _page(self) -> int:
-        return max(1, self.query_one("#nodes", NodeList).size.height - 1)
+        return max(1, self._node_list.size.height - 1)
 
     def action_page_down(self) -> None:
         """A page of rows down."""
@@ -487,19 +500,19 @@ class PrunetrailApp(App[None]):
 
     def action_play(self) -> None:
         """Play forward at the chosen speed, pausing where the stop list holds."""
-        if self._timer is not None:
+        if self._play_timer is not None:
             self._pause()
             return
         self._play_target = None
         if not self.stops.empty:
             self._play_target = self.model.run_until(self.stops, self.cursor, 1)
-        self._timer = self.set_interval(1 / SPEEDS[self._speed], self._tick)
+        self._play_timer = self.set_interval(1 / SPEEDS[self._speed], self._tick)
         self._update_top()
 
     def _pause(self) -> None:
-        if self._timer is not None:
-            self._timer.stop()
-            self._timer = None
+        if self._play_timer is not None:
+            self._play_timer.stop()
+            self._play_timer = None
         self._update_top()
 
     def _tick(self) -> None:
@@ -514,9 +527,9 @@ class PrunetrailApp(App[None]):
 
     def _set_speed(self, index: int) -> None:
         self._speed = max(0, min(index, len(SPEEDS) - 1))
-        if self._timer is not None:
-            self._timer.stop()
-            self._timer = self.set_interval(1 / SPEEDS[self._speed], self._tick)
+        if self._play_timer is not None:
+            self._play_timer.stop()
+            self._play_timer = self.set_interval(1 / SPEEDS[self._speed], self._tick)
         self._update_top()
 
     def action_faster(self) -> None:
@@ -554,7 +567,7 @@ class PrunetrailApp(App[None]):
             self.goto(self.cursor)
 
     def _rows_changed(self) -> None:
-        nodes = self.query_one("#nodes", NodeList)
+        nodes = self._node_list
         nodes.reload()
         self._play_target = None
 
@@ -576,16 +589,16 @@ class PrunetrailApp(App[None]):
         model = self.model
         filtered_on_wrong = model.filter.wrong
         model.add_wrong(message.wrong, message.checked_to)
-        nodes = self.query_one("#nodes", NodeList)
+        nodes = self._node_list
         if filtered_on_wrong and len(message.wrong):
             nodes.reload()
             nodes.cursor_row = model.rows.row_of(model.cursor)
         elif len(message.wrong):
             nodes.marks_changed()
             self._show_panels()
-        bar = self.query_one("#work-bar", ProgressBar)
+        bar = self._work_bar
         bar.update(total=max(message.total, 1), progress=message.checked_to)
-        label = self.query_one("#work-label", Static)
+        label = self._work_label
         wrong = model.wrong_ids.size
         done = message.checked_to >= message.total
         label.update(
@@ -600,7 +613,7 @@ class PrunetrailApp(App[None]):
             self._update_top()
 
     def _hide_work(self) -> None:
-        self.query_one("#work-bar", ProgressBar).display = False
+        self._work_bar.display = False
 
     def _oracle_fits(self) -> bool:
         return (
@@ -673,6 +686,7 @@ class PrunetrailApp(App[None]):
 
     def on_unmount(self) -> None:
         self._stop_follow.set()
+        self.workers.cancel_all()
 
     # -- why, stats ----------------------------------------------------------------------
 
@@ -710,6 +724,8 @@ class PrunetrailApp(App[None]):
         self.post_message(WhyReady(report, show))
 
     def on_why_ready(self, message: WhyReady) -> None:
+        from tui.why_screen import WhyScreen  # plotting loads only when a chart is shown
+
         self._why_report = message.report
         cut = message.report.cut_node
         if message.show:
@@ -723,6 +739,8 @@ class PrunetrailApp(App[None]):
 
     def action_stats(self) -> None:
         """The per-depth statistics screen."""
+        from tui.stats_screen import StatsScreen  # plotting loads only when a chart is shown
+
         self.push_screen(StatsScreen.from_model(self.model))
 
     # -- bookmarks -----------------------------------------------------------------------
@@ -789,9 +807,9 @@ class PrunetrailApp(App[None]):
     # -- panels, help, palette -----------------------------------------------------------
 
     def _toggle(self, selector: str) -> None:
-        panel = self.query_one(selector)
+        panel = self._panels[selector]
         panel.display = not panel.display
-        side = self.query_one("#side")
+        side = self._side
         side.display = any(child.display for child in side.children)
         self._show_panels()
 

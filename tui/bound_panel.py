@@ -26,19 +26,27 @@ from textual.widget import Widget
 
 from tracer.analysis import (
     REL_TOL,
-    SUBTRACTED_TERMS,
     TERM_LABELS,
     TreeIndex,
-    bound_terms,
     format_length,
     narrate,
     node_step,
     reaches,
     recompute_node,
-    recorded_bound,
     recorded_value,
 )
-from tracer.base import BOUND, BOUND_PARTS, DECISION_NAMES, DEPTH, LINK_OUT, PARTIAL, Trail
+from tracer.base import (
+    BOUND,
+    BOUND_PARTS,
+    DECISION_NAMES,
+    DEPTH,
+    LINK_OUT,
+    PARTIAL,
+    SUBTRACTED_TERMS,
+    Trail,
+    bound_terms,
+    recorded_bound,
+)
 
 if TYPE_CHECKING:
     from tui.model import ViewerModel
@@ -281,6 +289,7 @@ class BoundPanel(Widget):
         self._strips_width = -1
         self._lines_cache: tuple[int, list[Text]] | None = None
         self._reserved: dict[int, int] = {}
+        self._styles: dict[str, Style] = {}
 
     @property
     def view(self) -> BoundView | None:
@@ -322,6 +331,7 @@ class BoundPanel(Widget):
     def notify_style_update(self) -> None:
         """Styles changed: the cached strips hold old colours."""
         super().notify_style_update()
+        self._styles = {}
         self._forget()
 
     def get_content_height(self, container: Size, viewport: Size, width: int) -> int:
@@ -341,7 +351,12 @@ class BoundPanel(Widget):
     # -- building the lines ---------------------------------------------------------------
 
     def _style(self, name: str) -> Style:
-        return self.get_component_rich_style(f"bound-panel--{name}")
+        """A component class's style (cached until the styles change)."""
+        style = self._styles.get(name)
+        if style is None:
+            style = self.get_component_rich_style(f"bound-panel--{name}")
+            self._styles[name] = style
+        return style
 
     def _render_strips(self, width: int) -> list[Strip]:
         if width != self._strips_width:

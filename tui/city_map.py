@@ -11,6 +11,7 @@ without coordinates are laid out by scaling their distances and the map says so.
 from __future__ import annotations
 
 import bisect
+import itertools
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, ClassVar
 
@@ -264,6 +265,7 @@ class CityMap(Widget, can_focus=True):
         self._layout: tuple[TrailHeader, CityLayout] | None = None
         self._strips: list[Strip] = []
         self._strips_size: tuple[int, int] = (-1, -1)
+        self._styles: dict[str, Style] = {}
 
     @property
     def view(self) -> MapView | None:
@@ -317,8 +319,9 @@ class CityMap(Widget, can_focus=True):
         self._invalidate()
 
     def notify_style_update(self) -> None:
-        """Styles changed: the cached strips hold old colours."""
+        """Styles changed: the cached strips and styles hold old colours."""
         super().notify_style_update()
+        self._styles = {}
         self._strips_size = (-1, -1)
 
     def render_line(self, y: int) -> Strip:
@@ -336,7 +339,12 @@ class CityMap(Widget, can_focus=True):
         self.refresh()
 
     def _style(self, name: str) -> Style:
-        return self.rich_style + self.get_component_rich_style(f"city-map--{name}")
+        """A component class's style over the widget's (cached until the styles change)."""
+        style = self._styles.get(name)
+        if style is None:
+            style = self.rich_style + self.get_component_rich_style(f"city-map--{name}")
+            self._styles[name] = style
+        return style
 
     def _text_strip(self, parts: list[tuple[str, str]], width: int) -> Strip:
         segments = [Segment(text, self._style(style)) for text, style in parts]
@@ -355,18 +363,13 @@ class CityMap(Widget, can_focus=True):
         rows, cols = height - 2, width
         chars, styles = self._cells(view, rows, cols)
         lines = [self._text_strip([(title, "title")], width)]
-        for r in range(rows):
-            segments: list[Segment] = []
-            c = 0
-            while c < cols:
-                s = int(styles[r, c])
-                stop = c + 1
-                while stop < cols and styles[r, stop] == s:
-                    stop += 1
-                text = "".join(chars[r, c:stop])
-                style = self._style(CELL_STYLES[s]) if s else self.rich_style
-                segments.append(Segment(text, style))
-                c = stop
+        cell_styles = [self.rich_style, *(self._style(name) for name in CELL_STYLES[1:])]
+        texts = ["".join(row) for row in chars.tolist()]
+        for text, row in zip(texts, styles, strict=True):
+            cuts = [0, *(np.flatnonzero(row[1:] != row[:-1]) + 1).tolist(), cols]
+            segments = [
+                Segment(text[a:b], cell_styles[int(row[a])]) for a, b in itertools.pairwise(cuts)
+            ]
             lines.append(Strip(segments, cols))
         with_pi = " (π)" if view.penalties is not None else ""
         legend = [

@@ -19,13 +19,12 @@ from tracer.analysis import (
     NodeFilter,
     StopCondition,
     TreeIndex,
-    bound_values,
     kept_ids,
     kept_range,
     next_match,
     parse_filter,
 )
-from tracer.base import COMPLETE, DECISION_NAMES, Trail
+from tracer.base import COMPLETE, DECISION_NAMES, Trail, bound_values
 
 #: Status shown for a trail without an end frame that is being followed.
 LIVE = "live"

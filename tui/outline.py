@@ -24,8 +24,8 @@ from textual.message import Message
 from textual.widgets import Tree
 from textual.widgets.tree import TreeNode
 
-from tracer.analysis import TreeIndex, format_length, recorded_bound
-from tracer.base import CITY, DECISION, DECISION_NAMES, Trail
+from tracer.analysis import TreeIndex, format_length
+from tracer.base import CITY, DECISION, DECISION_NAMES, Trail, recorded_bound
 
 if TYPE_CHECKING:
     from tui.model import ViewerModel

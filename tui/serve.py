@@ -93,7 +93,7 @@ def serve(view_argv: Sequence[str], title: str, host: str, port: int) -> int:
         raise PrunetrailError(f"--port must be 1..65535, found {port}")
     url = public_url(host, port)
     console = Console(stderr=True, highlight=False, markup=False)
-    print(f"serving the viewer of {title} at {url}  (Ctrl-C stops)", flush=True)
+    print(f"serving {title} at {url}  (Ctrl-C stops)", flush=True)
     if not is_loopback(host):
         console.print(
             Text(

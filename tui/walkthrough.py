@@ -15,17 +15,15 @@ import numpy as np
 from numpy.typing import NDArray
 
 from tracer.analysis import (
-    SUBTRACTED_TERMS,
     TERM_LABELS,
     TreeIndex,
-    bound_terms,
     format_length,
     narrate,
     node_step,
     recompute_node,
 )
 from tracer.analysis.narrate import recorded_value
-from tracer.base import DECISION_NAMES, NO_BOUND, Trail
+from tracer.base import DECISION_NAMES, NO_BOUND, SUBTRACTED_TERMS, Trail, bound_terms
 
 _MARKDOWN_SPECIAL = re.compile(r"([\\`*_{}\[\]()<>#+\-.!|~])")
 

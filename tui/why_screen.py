@@ -23,8 +23,8 @@ from textual.screen import Screen
 from textual.widgets import DataTable, Footer, Static
 from textual_plotext import PlotextPlot
 
-from tracer.analysis import TERM_LABELS, TreeIndex, WhyReport, format_length, recorded_bound
-from tracer.base import Trail
+from tracer.analysis import TERM_LABELS, TreeIndex, WhyReport, format_length
+from tracer.base import Trail, recorded_bound
 from tui.stats_screen import depth_ticks
 
 #: Harmful prunes listed at most (the report may hold more).

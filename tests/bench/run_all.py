@@ -30,7 +30,8 @@ MARKER = "@@bench-summary@@ "
 #: Runs one script's main() (not its __main__ block) and prints the rows it returned.
 _DRIVER = f"""
 import json, runpy, sys
-module = runpy.run_path(sys.argv[1], run_name="bench")
+sys.argv = sys.argv[1:]  # the script sees no arguments of its own
+module = runpy.run_path(sys.argv[0], run_name="bench")
 rows = module["main"]()
 sys.stdout.flush()
 print({MARKER!r} + json.dumps(rows if isinstance(rows, list) else []), flush=True)

@@ -1,15 +1,12 @@
 from tracer.analysis.compare import Comparison, Difference, InstanceMismatchError, compare_trails
 from tracer.analysis.layout import LAYOUT_MAX_CITIES, CityLayout, city_layout, scaled_layout
 from tracer.analysis.narrate import (
-    SUBTRACTED_TERMS,
     TERM_LABELS,
     Step,
-    bound_terms,
     format_length,
     narrate,
     node_step,
     reaches,
-    recorded_bound,
     recorded_value,
 )
 from tracer.analysis.oracle import (
@@ -23,7 +20,6 @@ from tracer.analysis.predicates import (
     FilterError,
     NodeFilter,
     StopCondition,
-    bound_values,
     kept_ids,
     kept_range,
     next_match,
@@ -50,7 +46,6 @@ __all__ = [
     "LAYOUT_MAX_CITIES",
     "ORACLE_MAX_CITIES",
     "REL_TOL",
-    "SUBTRACTED_TERMS",
     "TERM_LABELS",
     "CityLayout",
     "Comparison",
@@ -70,8 +65,6 @@ __all__ = [
     "TreeIndex",
     "WhyReport",
     "best_completions",
-    "bound_terms",
-    "bound_values",
     "city_layout",
     "compare_trails",
     "completion_table",
@@ -88,7 +81,6 @@ __all__ = [
     "reaches",
     "recheck",
     "recompute_node",
-    "recorded_bound",
     "recorded_value",
     "remainder",
     "remainder_instance",

@@ -18,10 +18,17 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer.analysis.predicates import bound_values
 from tracer.analysis.stats import depth_decision_counts
 from tracer.analysis.tree_index import TreeIndex
-from tracer.base import CITY, COMPLETE, DECISION, DECISION_NAMES, PrunetrailError, Trail
+from tracer.base import (
+    CITY,
+    COMPLETE,
+    DECISION,
+    DECISION_NAMES,
+    PrunetrailError,
+    Trail,
+    bound_values,
+)
 
 #: Kinds of difference at a node, in the order they are reported.
 DIFFERENCE_KINDS = ("decision", "bound", "children", "child_order")

@@ -17,18 +17,14 @@ import numpy as np
 from tracer.analysis.rechecking import REL_TOL
 from tracer.analysis.tree_index import TreeIndex
 from tracer.base import (
-    BOUND,
-    BOUND_PARTS,
     DECISION,
     DEPTH,
     LINK_OUT,
     PARTIAL,
-    PENALTIES,
-    PENALTY,
     Decision,
     Trail,
-    TrailHeader,
     is_absent,
+    recorded_bound,
 )
 
 #: How the bound's parts are called on screen and in sentences.
@@ -39,8 +35,6 @@ TERM_LABELS: dict[str, str] = {
     "link_out": "link out",
     "penalty": "penalty",
 }
-#: Parts taken away from the sum rather than added (the penalties bound's 2·Σπ).
-SUBTRACTED_TERMS = frozenset({PENALTY})
 
 
 @dataclass(frozen=True)
@@ -85,39 +79,12 @@ def format_length(value: float | None, integral: bool = True) -> str:
     return text.replace(",", " ")
 
 
-def bound_terms(header: TrailHeader) -> tuple[str, ...]:
-    """The bound's parts this trail records, in the order they are summed.
-
-    Which parts a bound kind has comes from the columns the header names: tree+links has
-    partial, tree and the two links; the penalties bound adds its penalty term, which
-    `SUBTRACTED_TERMS` marks as taken away.
-    """
-    return tuple(name for name in (*BOUND_PARTS, PENALTY) if header.column(name) is not None)
-
-
 def recorded_value(trail: Trail, name: str, node: int) -> float | None:
     """A length column's value at a node, or None where the trail records none."""
     column = trail.columns.get(name)
     if column is None or bool(is_absent(column[node : node + 1])[0]):
         return None
     return float(column[node])
-
-
-def recorded_bound(trail: Trail, node: int) -> float | None:
-    """The bound at a node: the sum of its recorded parts, or a foreign solver's own bound."""
-    terms = bound_terms(trail.header)
-    parts = [recorded_value(trail, name, node) for name in terms]
-    if not terms or any(p is None for p in parts):
-        return recorded_value(trail, BOUND, node)
-    total = sum(
-        -value if name in SUBTRACTED_TERMS else value
-        for name, value in zip(terms, parts, strict=True)
-        if value is not None
-    )
-    if trail.header.solver.bound == PENALTIES and trail.header.instance.integral:
-        # Penalised parts are fractional; a tour of whole-number edges is at least the ceiling.
-        total = math.ceil(total - REL_TOL * max(abs(total), 1.0))
-    return float(total)
 
 
 def node_step(trail: Trail, index: TreeIndex, node: int, completion: float | None = None) -> Step:

@@ -21,7 +21,6 @@ Errors name the column where the text stops making sense (`FilterError.position`
 
 from __future__ import annotations
 
-import math
 import re
 from collections.abc import Iterator
 from dataclasses import dataclass
@@ -30,18 +29,15 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer.analysis.narrate import SUBTRACTED_TERMS, bound_terms
 from tracer.analysis.tree_index import TreeIndex
 from tracer.base import (
-    BOUND,
     DECISION,
     DECISION_BY_NAME,
     DECISION_NAMES,
     DEPTH,
-    PENALTIES,
     Decision,
     Trail,
-    is_absent,
+    bound_values,
 )
 
 #: Longest filter or stop text accepted (it comes from a keyboard or a command line).
@@ -63,37 +59,6 @@ class FilterError(ValueError):
 
 
 # -- the bound, vectorised ---------------------------------------------------------------
-
-
-def bound_values(trail: Trail, ids: NDArray[Any] | slice) -> NDArray[np.float64]:
-    """The bound of each node in `ids` as float64 (NaN where none was evaluated).
-
-    The same rule as `narrate.recorded_bound`, vectorised: the sum of the recorded parts
-    (penalty terms taken away, rounded up for a penalised integral bound) where all are
-    present, otherwise a foreign solver's own bound column.
-    """
-    terms = bound_terms(trail.header)
-    first = trail.columns[DECISION][ids]
-    total = np.zeros(len(first), dtype=np.float64)
-    present = np.ones(len(first), dtype=np.bool_)
-    if not terms:
-        present[:] = False
-    for name in terms:
-        values = trail.columns[name][ids]
-        present &= ~is_absent(values)
-        if name in SUBTRACTED_TERMS:
-            total -= values
-        else:
-            total += values
-    if trail.header.solver.bound == PENALTIES and trail.header.instance.integral:
-        total = np.ceil(total - 1e-9 * np.maximum(np.abs(total), 1.0))
-    total[~present] = math.nan
-    own = trail.columns.get(BOUND)
-    if own is not None:
-        values = own[ids]
-        fill = ~present & ~is_absent(values)
-        total[fill] = values[fill]
-    return total
 
 
 # -- the filter language -----------------------------------------------------------------

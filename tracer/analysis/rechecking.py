@@ -29,6 +29,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+from numba import njit
 from numpy.typing import NDArray
 
 from tracer.analysis._recheck_penalties import penalised_parts
@@ -65,6 +66,7 @@ from tracer.base import (
     TREE_LINKS,
     Decision,
     Trail,
+    bound_values,
     is_absent,
 )
 
@@ -79,6 +81,9 @@ KINDS: tuple[str, ...] = (
     "decision",
     "tour",
 )
+#: The kind of a decision that descended where the rule prunes: wasteful, not wrong (unless
+#: the check is strict, when it is a `decision` finding).
+MISSED = "missed_prune"
 #: Relative tolerance for floating-point lengths (times max(|value|, longest edge)).
 REL_TOL = 1e-9
 #: The fixed start city of every path.
@@ -104,6 +109,12 @@ class Finding:
         recomputed: what the rule gives (None where nothing should be recorded).
         path: the node's cities from the start city.
         detail: one line saying what is wrong.
+        root: whether the value is wrong although every value it is computed from is right
+            (False: a knock-on of the wrong value at node `root_id`).
+        root_id: for a knock-on, the node holding the root finding that explains it.
+        hint: a likely cause, where the pattern is certain.
+        numbers: for a decision, the arithmetic: the bound and its parts as recorded, the
+            bound recomputed, the incumbent in force and the rule applied.
     """
 
     id: int
@@ -113,6 +124,10 @@ class Finding:
     recomputed: Value
     path: tuple[int, ...]
     detail: str
+    root: bool = True
+    root_id: int | None = None
+    hint: str | None = None
+    numbers: dict[str, Value] | None = None
 
     def to_json(self) -> dict[str, Any]:
         """The finding as a JSON-ready map."""
@@ -124,6 +139,10 @@ class Finding:
             "recomputed": self.recomputed,
             "path": list(self.path),
             "detail": self.detail,
+            "root": self.root,
+            "root_id": self.root_id,
+            "hint": self.hint,
+            "numbers": self.numbers,
         }
 
 
@@ -140,6 +159,16 @@ class RecheckReport:
         start: first id checked.
         stop: one past the last id checked.
         wrong_ids: the id of every wrong record in the range, ascending.
+        roots: findings that are root causes (the rest are knock-ons of one of them).
+        knock_on_count: findings that are knock-ons.
+        knock_ons: for the node of each listed root finding (`first_roots`), how many
+            knock-on findings it explains.
+        first_roots: the first root findings in id order.
+        missed_prunes: nodes that descended although the rule prunes them (a cost in time,
+            never a lost tour); not wrong unless the check is strict.
+        missed_ids: their ids, ascending.
+        first_missed: the first of them as findings.
+        strict: whether missed prunes count as wrong decisions.
     """
 
     nodes_checked: int
@@ -150,6 +179,14 @@ class RecheckReport:
     start: int = 0
     stop: int = 0
     wrong_ids: NDArray[np.int64] = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    roots: int = 0
+    knock_on_count: int = 0
+    knock_ons: dict[int, int] = field(default_factory=dict)
+    first_roots: list[Finding] = field(default_factory=list)
+    missed_prunes: int = 0
+    missed_ids: NDArray[np.int64] = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    first_missed: list[Finding] = field(default_factory=list)
+    strict: bool = False
 
     @property
     def ok(self) -> bool:
@@ -165,6 +202,14 @@ class RecheckReport:
             "first": [f.to_json() for f in self.first],
             "kinds_checked": list(self.kinds_checked),
             "range": [self.start, self.stop],
+            "roots": self.roots,
+            "knock_ons": self.knock_on_count,
+            "first_roots": [
+                {**f.to_json(), "knock_ons": self.knock_ons.get(f.id, 0)} for f in self.first_roots
+            ],
+            "missed_prunes": self.missed_prunes,
+            "first_missed": [f.to_json() for f in self.first_missed],
+            "strict": self.strict,
         }
 
 
@@ -179,6 +224,10 @@ class _Check:
     recorded: NDArray[Any] | None = None
     recomputed: NDArray[Any] | None = None
     nothing_expected: NDArray[np.bool_] | None = None
+    #: Where the wrong value follows from a wrong input (a knock-on), and the node of the
+    #: root finding behind it (filled in by `_attribute`).
+    knock: NDArray[np.bool_] | None = None
+    root_of: NDArray[np.int64] | None = None
 
 
 @dataclass(frozen=True)
@@ -194,10 +243,12 @@ class _FrameFinding:
 class _Rule:
     """The trail's settings, matrix and tolerance, shared by every chunk."""
 
-    def __init__(self, trail: Trail, index: TreeIndex) -> None:
+    def __init__(self, trail: Trail, index: TreeIndex, strict: bool = False) -> None:
         solver = trail.header.solver
         self.trail = trail
         self.index = index
+        self.strict = strict
+        self._chains: NDArray[np.int32] | None = None
         self.columns = trail.columns
         self.n = trail.n
         self.matrix: NDArray[Any] = np.ascontiguousarray(trail.header.instance.matrix)
@@ -236,6 +287,25 @@ class _Rule:
                 if have.intersection(names):
                     kinds.add(kind)
         return tuple(k for k in KINDS if k in kinds)
+
+    @property
+    def chains(self) -> NDArray[np.int32]:
+        """For every node, the node whose wrong partial its own recorded partial follows
+        from (itself when it follows from nothing wrong; see `_partial_chains`)."""
+        if self._chains is None:
+            if PARTIAL in self.columns:
+                self._chains = _partial_chains(
+                    self.index.parent,
+                    self.columns[DEPTH],
+                    self.columns[CITY],
+                    self.columns[PARTIAL],
+                    self.matrix.astype(np.float64),
+                    0.0 if self.exact else REL_TOL,
+                    self.scale,
+                )
+            else:
+                self._chains = np.arange(self.trail.count, dtype=np.int32)
+        return self._chains
 
     def tolerance(self, values: NDArray[Any]) -> NDArray[np.float64] | int:
         """How far a float length may be from `values` and still agree (0 when exact)."""
@@ -309,6 +379,58 @@ class _Rule:
         return out
 
 
+@njit(cache=True, nogil=True)
+def _partial_chains(
+    parent: np.ndarray,
+    depth: np.ndarray,
+    city: np.ndarray,
+    partial: np.ndarray,
+    d: np.ndarray,
+    rel: float,
+    scale: float,
+) -> np.ndarray:
+    """`_Rule.chains` in one pre-order pass.
+
+    A node's recorded partial follows from upstream when it is its parent's recorded
+    partial plus the edge (the error came from above), or when its error is its previous
+    sibling's error plus the edge to that sibling (a running length that kept the
+    sibling's step: the error came from the side). Either way its root is that node's;
+    otherwise it is its own. Lengths agree within `rel` times the larger of the value and
+    `scale` (exactly when `rel` is 0). Sequential, so compiled; in pre-order the parent is
+    the last node one level up and the previous sibling the last node at the same level,
+    so the true partial, the error and the root of each live on a stack by depth.
+    """
+    count = parent.shape[0]
+    out = np.empty(count, dtype=np.int32)
+    top = int(depth.max()) + 2 if count else 1
+    node = np.full(top, -1, dtype=np.int64)
+    true = np.zeros(top, dtype=np.float64)
+    error = np.zeros(top, dtype=np.float64)
+    for i in range(count):
+        p = parent[i]
+        level = int(depth[i])
+        before = node[level]
+        before_error = error[level]
+        node[level] = i
+        node[level + 1] = -1
+        out[i] = i
+        if p < 0:  # the root (its partial should be 0) or an orphan (not judged)
+            true[level] = 0.0 if p == -1 else float(partial[i])
+            error[level] = float(partial[i]) - true[level]
+            continue
+        edge = d[city[p], city[i]]
+        true[level] = true[level - 1] + edge
+        error[level] = float(partial[i]) - true[level]
+        step = float(partial[p]) + edge
+        if abs(float(partial[i]) - step) <= rel * max(abs(step), scale):
+            out[i] = out[p]
+        elif before >= 0 and parent[before] == p and before_error != 0.0:
+            carried = before_error + d[city[p], city[before]]
+            if abs(error[level] - carried) <= rel * max(abs(carried), scale):
+                out[i] = out[before]
+    return out
+
+
 def _plain(value: Any, exact: bool) -> int | float | None:
     """A numpy or Python number as a JSON-ready int or float."""
     number = float(value)
@@ -327,6 +449,7 @@ def recheck(
     stop: int | None = None,
     first: int = 20,
     on_progress: Callable[[int, int], None] | None = None,
+    strict: bool = False,
 ) -> RecheckReport:
     """Recompute and judge every record in the id range [start, stop).
 
@@ -335,8 +458,10 @@ def recheck(
         index: its tree index (built here if not given).
         start: first id to check.
         stop: one past the last id (default: the end of the trail).
-        first: how many findings to keep, in id order.
+        first: how many findings to keep, in id order (and as many root findings and
+            missed prunes).
         on_progress: called after each chunk with (records done, records in the range).
+        strict: count missed prunes (descending where the rule prunes) as wrong decisions.
 
     Returns:
         The report: records checked, wrong records, wrong records per kind, first findings.
@@ -345,7 +470,7 @@ def recheck(
         index = TreeIndex(trail.columns, trail.best)
     stop = trail.count if stop is None else min(stop, trail.count)
     start = max(0, min(start, stop))
-    rule = _Rule(trail, index)
+    rule = _Rule(trail, index, strict)
     report = RecheckReport(
         nodes_checked=stop - start,
         wrong=0,
@@ -353,9 +478,11 @@ def recheck(
         kinds_checked=rule.kinds,
         start=start,
         stop=stop,
+        strict=strict,
     )
     step = max(1, min(CHUNK_CELLS // max(rule.n, 1), CHUNK_NODES))
     wrong_parts: list[NDArray[np.int64]] = []
+    missed_parts: list[NDArray[np.int64]] = []
     for lo in range(start, stop, step):
         hi = min(stop, lo + step)
         checks = _check_chunk(rule, lo, hi)
@@ -372,14 +499,60 @@ def recheck(
             wrong |= bad
         report.wrong += int(wrong.sum())
         wrong_parts.append(lo + np.flatnonzero(wrong).astype(np.int64))
+        rooted = np.zeros(hi - lo, dtype=np.bool_)
+        rooted[[f.id - lo for f in frames]] = True
+        report.roots += len(frames)
+        knocks: list[tuple[_Check, NDArray[np.bool_]]] = []
+        for check in checks:
+            if check.kind not in KINDS:
+                continue
+            knock = check.bad & check.knock if check.knock is not None else check.bad & False
+            rooted |= check.bad & ~knock
+            report.roots += int((check.bad & ~knock).sum())
+            report.knock_on_count += int(knock.sum())
+            knocks.append((check, knock))
+        missed = np.zeros(hi - lo, dtype=np.bool_)
+        for check in checks:
+            if check.kind == MISSED:
+                missed |= check.bad
+        report.missed_prunes += int(missed.sum())
+        missed_parts.append(lo + np.flatnonzero(missed).astype(np.int64))
         room = first - len(report.first)
         if room > 0 and wrong.any():
             report.first.extend(_findings(rule, lo, checks, frames, wrong, room))
+        room = first - len(report.first_roots)
+        if room > 0 and rooted.any():
+            report.first_roots.extend(
+                _findings(rule, lo, checks, frames, rooted, room, only_roots=True)
+            )
+        _count_knock_ons(report, knocks)
+        room = first - len(report.first_missed)
+        if room > 0 and missed.any():
+            report.first_missed.extend(
+                _findings(rule, lo, checks, [], missed, room, kinds=(MISSED,))
+            )
         if on_progress is not None:
             on_progress(hi - start, stop - start)
     if wrong_parts:
         report.wrong_ids = np.concatenate(wrong_parts)
+    if missed_parts:
+        report.missed_ids = np.concatenate(missed_parts)
     return report
+
+
+def _count_knock_ons(report: RecheckReport, knocks: list[tuple[_Check, NDArray[np.bool_]]]) -> None:
+    """Add a chunk's knock-ons to the counts of the listed root findings they follow from
+    (only those: a trail with millions of roots keeps no count per root)."""
+    listed = np.array(sorted({f.id for f in report.first_roots}), dtype=np.int64)
+    if not listed.size:
+        return
+    for check, knock in knocks:
+        if check.root_of is None or not knock.any():
+            continue
+        behind = check.root_of[knock]
+        behind, counts = np.unique(behind[np.isin(behind, listed)], return_counts=True)
+        for node, many in zip(behind.tolist(), counts.tolist(), strict=True):
+            report.knock_ons[node] = report.knock_ons.get(node, 0) + many
 
 
 def recompute_node(trail: Trail, index: TreeIndex, node: int) -> dict[str, float | int | None]:
@@ -438,37 +611,173 @@ def _findings(
     lo: int,
     checks: list[_Check],
     frames: list[_FrameFinding],
-    wrong: NDArray[np.bool_],
+    rows: NDArray[np.bool_],
     room: int,
+    kinds: tuple[str, ...] = KINDS,
+    only_roots: bool = False,
 ) -> list[Finding]:
-    """The first `room` findings of a chunk, in id order, then in `KINDS` order."""
+    """The first `room` findings at the marked rows of a chunk, in id order, then by kind.
+
+    Each carries whether it is a root finding, the node of its root if not, a hint where
+    the pattern is certain, and for a decision the arithmetic behind it.
+    """
     out: list[Finding] = []
-    for j in np.flatnonzero(wrong)[:room]:
+    for j in np.flatnonzero(rows)[:room]:
         node = lo + int(j)
         path = tuple(rule.index.path(node))
         here: list[Finding] = []
         for check in checks:
-            if check.bad[j]:
-                here.append(
-                    Finding(
-                        node,
-                        check.kind,
-                        check.field,
-                        _shown(check.recorded, j, check.field, rule.exact, None),
-                        _shown(
-                            check.recomputed, j, check.field, rule.exact, check.nothing_expected
-                        ),
-                        path,
-                        check.detail,
-                    )
+            if check.kind not in kinds or not check.bad[j]:
+                continue
+            knock = bool(check.knock[j]) if check.knock is not None else False
+            if knock and only_roots:
+                continue
+            root_id = int(check.root_of[j]) if knock and check.root_of is not None else None
+            numbers = None
+            detail = check.detail
+            if check.field == DECISION and check.kind in ("decision", MISSED):
+                numbers, detail = _arithmetic(rule, node, check, j)
+            here.append(
+                Finding(
+                    node,
+                    check.kind,
+                    check.field,
+                    _shown(check.recorded, j, check.field, rule.exact, None),
+                    _shown(check.recomputed, j, check.field, rule.exact, check.nothing_expected),
+                    path,
+                    detail,
+                    root=not knock,
+                    root_id=root_id,
+                    hint=_hint(rule, node, check.kind, check.field, numbers),
+                    numbers=numbers,
                 )
+            )
         here += [
             Finding(node, "tour", "best", f.recorded, f.recomputed, path, f.detail)
             for f in frames
             if f.id == node
         ]
-        out += sorted(here, key=lambda f: KINDS.index(f.kind))
+        out += sorted(here, key=lambda f: kinds.index(f.kind) if f.kind in kinds else 0)
     return out[:room]
+
+
+def _recorded(rule: _Rule, name: str, node: int) -> Value:
+    """A length column's recorded value at one node (None if absent or not recorded)."""
+    column = rule.columns.get(name)
+    if column is None or bool(is_absent(column[node : node + 1])[0]):
+        return None
+    return _plain(column[node], rule.exact or column.dtype.kind in "iu")
+
+
+def _arithmetic(rule: _Rule, node: int, check: _Check, j: int) -> tuple[dict[str, Value], str]:
+    """The numbers a decision was judged on, and one line saying what the rule wanted."""
+    values = recompute_node(rule.trail, rule.index, node)
+    incumbent = values["incumbent"]
+    decision = DECISION_NAMES[int(rule.columns[DECISION][node])]
+    wanted = DECISION_NAMES[int(check.recomputed[j])] if check.recomputed is not None else "?"
+    numbers: dict[str, Value] = {}
+    parts = [name for name in (PARTIAL, TREE, LINK_IN, LINK_OUT, PENALTY) if name in rule.columns]
+    for name in parts:
+        numbers[name] = _recorded(rule, name, node)
+    if BOUND in rule.columns:
+        numbers["bound"] = _recorded(rule, BOUND, node)
+    elif all(numbers.get(name) is not None for name in parts if name != PENALTY) and parts:
+        total = sum(
+            -float(v) if name == PENALTY else float(v)
+            for name, v in numbers.items()
+            if v is not None and name in parts
+        )
+        numbers["bound"] = _plain(total, rule.exact)
+    numbers["recomputed_bound"] = values["bound"]
+    numbers["incumbent"] = incumbent
+    shown_incumbent = "none (no tour yet)" if incumbent is None else _text(incumbent)
+    unvisited = int(values["unvisited"] or 0)
+    if unvisited == 0:
+        rule_text = "tour_better when the tour's length < incumbent, else tour"
+        judged = f"length {_text(values['length'])}"
+    elif values["bound"] is not None:
+        rule_text = "prune when bound >= incumbent"
+        shown = [_text(numbers[name]) for name in parts if numbers.get(name) is not None]
+        sign = "+".join(shown) if len(shown) == len(parts) else None
+        judged = f"bound {_text(values['bound'])}" + (f" ({sign})" if sign else "")
+        if numbers.get("bound") is not None and not _same(
+            rule, float(numbers["bound"] or 0), float(values["bound"])
+        ):
+            judged += f", recorded {_text(numbers['bound'])}"
+    elif rule.evaluates:
+        rule_text = f"with {rule.cutoff} or fewer cities left, prune when partial >= incumbent"
+        judged = f"partial {_text(values['partial'])}"
+    else:
+        recorded_bound = numbers.get("bound")
+        rule_text = "prune when the recorded bound >= incumbent"
+        judged = f"recorded bound {_text(recorded_bound)}"
+    numbers["rule"] = rule_text
+    detail = f"{decision}, but {judged} against incumbent {shown_incumbent} gives {wanted}"
+    return numbers, f"{detail} ({rule_text})"
+
+
+def _text(value: Value) -> str:
+    if value is None:
+        return "none"
+    if isinstance(value, float) and value.is_integer():
+        return str(int(value))
+    return str(value)
+
+
+def _hint(
+    rule: _Rule, node: int, kind: str, name: str, numbers: dict[str, Value] | None
+) -> str | None:
+    """A likely cause, given only where the pattern is certain."""
+    index = rule.index
+    if numbers is not None:
+        decision = int(rule.columns[DECISION][node])
+        incumbent = numbers.get("incumbent")
+        if decision == Decision.PRUNE and incumbent is None:
+            return (
+                "no incumbent was in force: the trace seems to lack its start tour "
+                "(a `best` line with a null id)"
+            )
+        judged = numbers.get("bound")
+        if judged is None or numbers.get("recomputed_bound") is None:
+            judged = numbers.get(PARTIAL)
+        if (
+            decision in DESCENDING
+            and incumbent is not None
+            and judged is not None
+            and _same(rule, float(judged), float(incumbent))
+        ):
+            return "the bound equals the incumbent: the prune rule may use > instead of >="
+        return None
+    parent = int(index.parent[node])
+    if parent < 0 or kind not in ("tree", "partial"):
+        return None
+    siblings = index.children(parent)
+    at = siblings.index(node) if node in siblings else 0
+    if at == 0:
+        return None
+    before = siblings[at - 1]
+    if kind == "tree" and name == TREE:
+        mine, theirs = _recorded(rule, TREE, node), _recorded(rule, TREE, before)
+        if mine is not None and theirs is not None and _same(rule, float(mine), float(theirs)):
+            return "this tree weight equals the previous sibling's"
+    if kind == "partial":
+        recorded = _recorded(rule, PARTIAL, node)
+        true = recompute_node(rule.trail, index, node)[PARTIAL]
+        city = rule.columns[CITY]
+        edge = float(rule.matrix[int(city[parent]), int(city[before])])
+        if (
+            recorded is not None
+            and true is not None
+            and edge > 0
+            and _same(rule, float(recorded) - float(true), edge)
+        ):
+            return "the partial exceeds the true one by exactly the edge to the previous sibling"
+    return None
+
+
+def _same(rule: _Rule, a: float, b: float) -> bool:
+    """Two lengths agree (exactly, or within the float tolerance)."""
+    return bool(rule.agrees(np.array([a]), np.array([b]))[0])
 
 
 def _shown(
@@ -753,10 +1062,8 @@ def _check_chunk(rule: _Rule, lo: int, hi: int) -> list[_Check]:
             )
         if rule.penalised and rule.exact:
             bound = np.ceil(bound)  # whole-number lengths: the engine rounds the bound up
-    checks.append(
-        _decision_check(
-            rule, lo, hi, decision, incumbent, (partial, bound, length), (live, open_, bounded)
-        )
+    checks += _decision_check(
+        rule, lo, hi, decision, incumbent, (partial, bound, length), (live, open_, bounded)
     )
     checks.append(
         _Check(
@@ -768,7 +1075,88 @@ def _check_chunk(rule: _Rule, lo: int, hi: int) -> list[_Check]:
             length,
         )
     )
+    _attribute(rule, lo, hi, checks, incumbent, (open_, bounded, complete))
     return checks
+
+
+def _attribute(
+    rule: _Rule,
+    lo: int,
+    hi: int,
+    checks: list[_Check],
+    incumbent: NDArray[np.float64],
+    groups: tuple[NDArray[np.bool_], NDArray[np.bool_], NDArray[np.bool_]],
+) -> None:
+    """Mark each wrong value as a root finding or a knock-on, and name the knock-on's root.
+
+    A partial is a knock-on when it follows from a wrong partial above it or beside it
+    (`_partial_chains`). A recorded bound, or a decision, is a knock-on when it follows from the
+    recorded numbers at its node while one of them is wrong: its root is that node (a wrong
+    tree or link) or the root of its wrong partial. Everything else is a root finding.
+    """
+    if not any(check.bad.any() for check in checks):
+        return  # a clean chunk: nothing to attribute (the common case, kept cheap)
+    ids = np.arange(lo, hi, dtype=np.int64)
+    chains = rule.chains[lo:hi].astype(np.int64)
+    m = hi - lo
+    partial_bad = np.zeros(m, dtype=np.bool_)
+    part_bad = np.zeros(m, dtype=np.bool_)
+    for check in checks:
+        if check.kind == "partial":
+            partial_bad |= check.bad
+        elif check.kind in ("tree", "link_in", "link_out") or check.field == PENALTY:
+            part_bad |= check.bad
+    upstream = np.where(part_bad, ids, chains)
+    inputs_bad = part_bad | partial_bad
+    follows = _follows_recorded(rule, lo, hi, incumbent, groups)
+    for check in checks:
+        if check.kind == "partial":
+            check.knock = check.bad & (chains != ids)
+            check.root_of = chains.copy()
+        elif check.field == BOUND and check.kind == "bound":
+            recorded = rule.columns[BOUND][lo:hi]
+            total = bound_values(rule.trail, slice(lo, hi)) if rule.ours else None
+            same = (
+                rule.agrees(recorded, np.nan_to_num(total, nan=np.inf))
+                if total is not None
+                else np.zeros(m, dtype=np.bool_)
+            )
+            check.knock = check.bad & inputs_bad & same
+            check.root_of = upstream
+        elif check.field == DECISION and check.kind in ("decision", MISSED):
+            check.knock = check.bad & inputs_bad & follows
+            check.root_of = upstream
+
+
+def _follows_recorded(
+    rule: _Rule,
+    lo: int,
+    hi: int,
+    incumbent: NDArray[np.float64],
+    groups: tuple[NDArray[np.bool_], NDArray[np.bool_], NDArray[np.bool_]],
+) -> NDArray[np.bool_]:
+    """Where the recorded decision is what the rule gives on the recorded numbers."""
+    open_, bounded, complete = groups
+    cols = rule.columns
+    decision = cols[DECISION][lo:hi]
+    m = hi - lo
+    if PARTIAL not in cols:
+        return np.zeros(m, dtype=np.bool_)
+    partial = cols[PARTIAL][lo:hi].astype(np.float64)
+    partial = np.where(is_absent(cols[PARTIAL][lo:hi]), np.nan, partial)
+    bound = bound_values(rule.trail, slice(lo, hi))
+    city = cols[CITY][lo:hi].astype(np.intp)
+    length = partial + rule.matrix[city, START]
+    out = np.zeros(m, dtype=np.bool_)
+    for pick, value, yes, no, at_least in (
+        (bounded, bound, Decision.PRUNE, Decision.EXPAND, True),
+        (open_ & ~bounded, partial, Decision.PRUNE, Decision.SKIP, True),
+        (complete, length, Decision.TOUR_BETTER, Decision.TOUR, False),
+    ):
+        with np.errstate(invalid="ignore"):
+            e, a = _verdict(rule, value, incumbent, yes, no, at_least=at_least)
+        out |= pick & ~np.isnan(value) & ((decision == e) | (decision == a))
+    return out
 
 
 def _column_checks(
@@ -880,8 +1268,9 @@ def _decision_check(
     incumbent: NDArray[np.float64],
     lengths: tuple[NDArray[Any], NDArray[Any], NDArray[Any]],
     groups: tuple[NDArray[np.bool_], NDArray[np.bool_], NDArray[np.bool_]],
-) -> _Check:
-    """The decision against the rule, with the incumbent in force at each node.
+) -> list[_Check]:
+    """The decision against the rule, with the incumbent in force at each node: the wrong
+    decisions, and apart from them the missed prunes.
 
     Args:
         lengths: the recomputed partial, bound and (at complete paths) tour length.
@@ -921,11 +1310,17 @@ def _decision_check(
             fits = (pruned == (e == Decision.PRUNE)) | (pruned == (a == Decision.PRUNE))
             bad |= judged & ~fits
             expected = np.where(judged, e, expected)
-    return _Check(
-        "decision",
-        DECISION,
-        bad,
-        "the decision does not follow from the bound and the incumbent in force",
-        decision,
-        expected,
-    )
+    # Descending where the rule prunes costs time but loses no tour: a missed prune.
+    missed = bad & np.isin(decision, _DESCENDING_CODES) & (expected == Decision.PRUNE)
+    detail = "the decision does not follow from the bound and the incumbent in force"
+    return [
+        _Check("decision", DECISION, bad & ~missed, detail, decision, expected),
+        _Check(
+            "decision" if rule.strict else MISSED,
+            DECISION,
+            missed,
+            "descended although the rule prunes here (a missed prune)",
+            decision,
+            expected,
+        ),
+    ]

@@ -17,7 +17,6 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer.analysis.predicates import bound_values
 from tracer.analysis.tree_index import TreeIndex
 from tracer.base import (
     BOUND,
@@ -28,6 +27,7 @@ from tracer.base import (
     TREE,
     Decision,
     Trail,
+    bound_values,
 )
 
 #: Where the tightness figures come from.

@@ -31,9 +31,8 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from tracer.analysis.narrate import SUBTRACTED_TERMS, bound_terms, recorded_bound, recorded_value
+from tracer.analysis.narrate import recorded_value
 from tracer.analysis.oracle import CompletionTable, best_completions
-from tracer.analysis.predicates import bound_values
 from tracer.analysis.rechecking import REL_TOL, recompute_node
 from tracer.analysis.tree_index import TreeIndex
 from tracer.base import (
@@ -42,13 +41,17 @@ from tracer.base import (
     LINK_IN,
     LINK_OUT,
     PARTIAL,
+    SUBTRACTED_TERMS,
     TREE,
     VISIT,
     BestUpdate,
     Decision,
     Instance,
     Trail,
+    bound_terms,
+    bound_values,
     explicit_instance,
+    recorded_bound,
 )
 
 #: The verdicts, in the order they are tried.
@@ -390,7 +393,11 @@ class _Judge:
             base.explanation = wrong_frame
             return base
         bound = base.bound
-        if bound is None:  # pruned below the cutoff on the path's length alone
+        recomputed_only = False
+        if bound is None:  # no bound recorded: the rule's own, else the path's length alone
+            bound = _float(values.get("bound"))
+            recomputed_only = bound is not None
+        if bound is None:
             bound = _float(recorded_value(self.trail, PARTIAL, node))
         if bound is None:
             bound = float(values.get(PARTIAL) or 0.0)
@@ -401,7 +408,11 @@ class _Judge:
         ):
             base.culprit = "bound_rule"
             base.explanation = (
-                f"Node {node} was pruned with bound {fmt(bound)} below the incumbent "
+                f"Node {node} was pruned although its bound, recomputed (the trail records "
+                f"none), is {fmt(bound)}, below the incumbent {fmt(incumbent)}: the search's "
+                "bound or its prune rule was wrong here."
+                if recomputed_only
+                else f"Node {node} was pruned with bound {fmt(bound)} below the incumbent "
                 f"{fmt(incumbent)}: the prune rule (prune when bound >= incumbent) was broken."
             )
             return base

@@ -1,3 +1,4 @@
+from tracer.base.bounds import SUBTRACTED_TERMS, bound_terms, bound_values, recorded_bound
 from tracer.base.errors import InputError, PrunetrailError
 from tracer.base.file_kinds import KIND_NAMES, FileKind, expect_kind, sniff, sniff_bytes
 from tracer.base.frames import BestUpdate, EndInfo, length_value
@@ -166,6 +167,7 @@ __all__ = [
     "SOURCE_ID",
     "SOURCE_LINE",
     "STATUSES",
+    "SUBTRACTED_TERMS",
     "TREE",
     "TREE_LINKS",
     "VISIT",
@@ -188,6 +190,8 @@ __all__ = [
     "TrailHeader",
     "absent_value",
     "best_tour",
+    "bound_terms",
+    "bound_values",
     "city_value",
     "column_layout",
     "decision_code",
@@ -199,6 +203,7 @@ __all__ = [
     "is_number",
     "length_value",
     "link_value",
+    "recorded_bound",
     "recorded_length",
     "show_value",
     "sniff",

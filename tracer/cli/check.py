@@ -27,6 +27,12 @@ examples:
   prunetrail check run.trail
   prunetrail check run.trail --first 5 --range 1000:2000
   prunetrail check trace.jsonl --json
+  prunetrail check trace.jsonl --strict
+
+Root findings (a value wrong although everything it is computed from is right) are
+listed first, each with the count of knock-on findings it explains. Missed prunes
+(descending where the rule prunes: time lost, no tour lost) are counted apart and do not
+make the exit status 1 unless --strict.
 
 exit status: 0 every record checks, 1 some record is wrong, 2 unreadable input,
 4 every record read checks but the trail is incomplete (cut short, or no end frame: a
@@ -59,6 +65,12 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         dest="id_range",
         help="check only node ids A..B-1",
     )
+    p.add_argument(
+        "--strict",
+        action="store_true",
+        help="count missed prunes (descending although the bound or the path had reached "
+        "the incumbent) as wrong decisions",
+    )
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=run)
 
@@ -86,7 +98,15 @@ def run(args: argparse.Namespace) -> int:
         def show(done: int, total: int) -> None:
             progress.update(task, completed=done, total=total)
 
-        report = recheck(trail, index, start=start, stop=stop, first=args.first, on_progress=show)
+        report = recheck(
+            trail,
+            index,
+            start=start,
+            stop=stop,
+            first=args.first,
+            on_progress=show,
+            strict=args.strict,
+        )
     if args.json:
         result: dict[str, Any] = {
             "trail": args.trail,
@@ -94,8 +114,9 @@ def run(args: argparse.Namespace) -> int:
             "complete": complete,
             "notice": trail.notice,
         }
-        for finding in result["first"]:
-            finding.update(_source(trail, finding["id"]))
+        for key in ("first", "first_roots", "first_missed"):
+            for finding in result[key]:
+                finding.update(_source(trail, finding["id"]))
         emit_json(result)
     else:
         _print_report(args.trail, report, trail)
@@ -118,52 +139,110 @@ def _value(value: Any) -> Text:
     return Text("-" if value is None else str(value))
 
 
+#: Reasons short enough for an 80-column table, by finding kind (the full sentence, the
+#: path, the arithmetic and any hint follow the table).
+_SHORT = {
+    "structure": "structure",
+    "partial": "not parent's + edge",
+    "tree": "not the MST weight",
+    "link_in": "not the cheapest in",
+    "link_out": "not the cheapest out",
+    "bound": "not the parts' sum",
+    "decision": "wrong decision",
+    "missed_prune": "missed prune",
+    "tour": "bad best frame",
+}
+
+
 def _print_report(name: str, report: RecheckReport, trail: Trail) -> None:
     span = f"ids {report.start}..{report.stop - 1}" if report.nodes_checked else "no records"
     if report.ok:
         out.print(
             Text(f"{name}: all {report.nodes_checked:,} records check ({span})", style="green")
         )
-        return
-    out.print(
-        Text(
-            f"{name}: {report.wrong:,} of {report.nodes_checked:,} records are wrong ({span})",
-            style="red",
+    else:
+        knock_ons = report.knock_on_count
+        out.print(
+            Text(
+                f"{name}: {report.wrong:,} of {report.nodes_checked:,} records are wrong ({span})",
+                style="red",
+            )
         )
-    )
-    kinds = Table("kind", "wrong records", title="wrong records by kind", title_justify="left")
-    for kind, wrong in report.by_kind.items():
-        if wrong:
-            kinds.add_row(Text(kind), Text(f"{wrong:,}"))
-    out.print(kinds)
-    if report.first:
-        out.print(_findings_table(report.first, trail))
+        out.print(
+            Text(
+                f"{report.roots:,} root finding{'s' * (report.roots != 1)}, "
+                f"{knock_ons:,} knock-on{'s' * (knock_ons != 1)} of them"
+            )
+        )
+        kinds = ", ".join(f"{kind} {n:,}" for kind, n in report.by_kind.items() if n)
+        out.print(Text(f"wrong records by kind: {kinds}"))
+        if report.first_roots:
+            out.print(_findings_table("root findings", report.first_roots, report, trail))
+            _print_notes(report.first_roots, trail)
+        knock = [f for f in report.first if not f.root]
+        if knock:
+            out.print(_findings_table("knock-on findings", knock, report, trail))
+        if not report.first_roots and report.first:  # only frames, say; show them plainly
+            out.print(_findings_table("findings", report.first, report, trail))
+            _print_notes(report.first, trail)
+    if report.missed_prunes and not report.strict:
+        out.print(
+            Text(
+                f"missed prunes: {report.missed_prunes:,} nodes descended although the rule "
+                "prunes them (time lost, no tour lost; --strict counts them as wrong)",
+                style="yellow",
+            )
+        )
+        out.print(_findings_table("first missed prunes", report.first_missed, report, trail))
+        _print_notes(report.first_missed, trail)
 
 
-def _findings_table(findings: list[Finding], trail: Trail) -> Table:
-    imported = SOURCE_ID in trail.columns
+def _findings_table(
+    title: str, findings: list[Finding], report: RecheckReport, trail: Trail
+) -> Table:
+    roots = all(f.root for f in findings)
     table = Table(
         "id",
-        *(["solver id", "line"] if imported else []),
-        "kind",
         "field",
         "recorded",
         "recomputed",
-        "path",
-        "what is wrong",
-        title=f"first {len(findings)} findings",
+        "knock-ons" if roots else "root",
+        "reason",
+        title=f"{title} (first {len(findings)})",
         title_justify="left",
+        box=None,
+        padding=(0, 1),
+        pad_edge=False,
+        header_style="bold",
     )
     for f in findings:
-        source = [Text(str(v)) for v in _source(trail, f.id).values()]
+        link = report.knock_ons.get(f.id, 0) if f.root else f.root_id
         table.add_row(
             Text(str(f.id)),
-            *source,
-            Text(f.kind),
             Text(f.field),
             _value(f.recorded),
             _value(f.recomputed),
-            Text(" ".join(str(c) for c in f.path)),
-            Text(f.detail),
+            _value(link),
+            Text(_SHORT.get(f.kind, f.kind)),
         )
     return table
+
+
+def _print_notes(findings: list[Finding], trail: Trail) -> None:
+    """Under a table: what is wrong in full (with the arithmetic of a decision), the path
+    (and for an imported trace the solver's own id and line), and any hint."""
+    notes = Table.grid(padding=(0, 1))
+    notes.add_column(justify="right", no_wrap=True)
+    notes.add_column()
+    for f in findings:
+        text = Text(f.detail)
+        text.append(f"\npath {' '.join(str(c) for c in f.path)}", style="dim")
+        given = _source(trail, f.id)
+        if given:
+            text.append(
+                f" · solver id {given['source_id']}, line {given['source_line']}", style="dim"
+            )
+        if f.hint:
+            text.append(f"\nhint: {f.hint}", style="cyan")
+        notes.add_row(Text(f"{f.id}:"), text)
+    out.print(notes)

@@ -151,9 +151,14 @@ def _print_report(name_a: str, name_b: str, c: Comparison, integral: bool) -> No
     kinds = ", ".join(
         f"{kind.replace('_', ' ')} {count:,}" for kind, count in c.differing.items() if count
     )
+    firsts = ", ".join(
+        f"{kind.replace('_', ' ')} at A {node}"
+        for kind, node in c.first_of_kind.items()
+        if node is not None
+    )
     out.print(
         Text(
-            f"nodes that differ, by kind: {kinds or 'none'}; paths only in A: {c.only_a:,}, "
-            f"only in B: {c.only_b:,}"
+            f"nodes that differ, by kind: {kinds or 'none'} (first of each: {firsts}); paths "
+            f"only in A: {c.only_a:,}, only in B: {c.only_b:,}"
         )
     )

@@ -70,8 +70,10 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "solve",
         help="run the recorded exact search and write a trail",
         description="Run the depth-first branch and bound (bound: partial length + minimum "
-        "spanning tree over the unvisited cities + the two cheapest links), recording every "
-        "node into a trail file. Ctrl-C stops cleanly: the trail keeps every node so far.",
+        "spanning tree over the unvisited cities + the two cheapest links; with --bound "
+        "penalties the same over lengths raised by a penalty per city, less the penalties), "
+        "recording every node into a trail file. Ctrl-C stops cleanly: the trail keeps every "
+        "node so far.",
         epilog=_EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )

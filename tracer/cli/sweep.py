@@ -32,6 +32,7 @@ from tracer.formats import load_instance
 from tracer.search import (
     BOUNDS,
     DISAGREES_BEYOND,
+    FAULTS,
     FLAT_WITHIN,
     ORDERS,
     ROW_FIELDS,
@@ -122,6 +123,12 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.add_argument("--max-nodes", type=count, metavar="N", help="stop each run after N nodes")
     p.add_argument("--order", choices=ORDERS, default="nearest", help="child order")
     p.add_argument("--bound", choices=BOUNDS, default=TREE_LINKS, help="the bound")
+    p.add_argument(
+        "--fault",
+        choices=list(FAULTS),
+        metavar="NAME",
+        help="plant a bound mistake (see `prunetrail solve --help`); lengths may then differ",
+    )
     add_start_options(p, allow_none=True)
     p.add_argument("--no-chart", action="store_true", help="leave out the chart")
     p.add_argument("--json", action="store_true", help="print one JSON object")
@@ -207,7 +214,9 @@ def _csv_values(row: SweepRow) -> dict[str, Any]:
 def run(args: argparse.Namespace) -> int:
     """Plan, run and report the sweep."""
     instances = _instances(args)
-    settings = SearchSettings(order=args.order, bound=args.bound, max_nodes=args.max_nodes)
+    settings = SearchSettings(
+        order=args.order, bound=args.bound, fault=args.fault, max_nodes=args.max_nodes
+    )
     jobs = plan(instances, args.cutoffs, args.repeat, settings)
     table = SweepTable(jobs)
     csv_rows = None if args.out is None else _CsvRows(Path(f"{args.out}.csv"))
@@ -252,6 +261,7 @@ def run(args: argparse.Namespace) -> int:
             "repeat": args.repeat,
             "order": args.order,
             "bound": args.bound,
+            "fault": args.fault,
             "start": args.start,
             "improve": args.improve,
             "max_nodes": args.max_nodes,

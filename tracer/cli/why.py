@@ -39,7 +39,7 @@ from tracer.trails import open_trail
 EXIT_LOST = 1
 
 _EPILOG = f"""\
-verdicts (culprit): partial, tree, link_in, link_out (that recorded part was wrong),
+verdicts (culprit): partial, tree, link_in, link_out, penalty (that recorded part was wrong),
 bound_rule (pruned with a bound below the incumbent), inadmissible_bound (every number
 right, but the bound exceeds the best tour through the node), incumbent (the incumbent in
 force was wrong), none (the tour was completed, or its branch was pruned rightly).

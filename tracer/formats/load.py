@@ -16,14 +16,14 @@ INSTANCE_KINDS = (FileKind.TSPLIB, FileKind.CSV)
 
 
 def load_instance(path: str | Path) -> Instance:
-    """Read an instance: `.csv` (or CSV content) as a city list, anything else as TSPLIB text.
+    """Read an instance: `.csv` as a city list, anything else as TSPLIB text.
 
     Raises:
         InputError: the file is malformed, or is another kind of file (a trail, say).
     """
     p = Path(path)
-    kind = expect_kind(p, INSTANCE_KINDS, "an instance (TSPLIB text or a CSV city list)")
-    if p.suffix.lower() == ".csv" or kind == FileKind.CSV:
+    expect_kind(p, INSTANCE_KINDS, "an instance (TSPLIB text or a CSV city list)")
+    if p.suffix.lower() == ".csv":
         return read_cities_csv(p)[0]
     return read_instance(p)
 

@@ -41,7 +41,7 @@ from tracer.base import (
     column_layout,
 )
 from tracer.search import engine
-from tracer.search.faults import FAULTS, fault_bound, fault_code
+from tracer.search.faults import FAULTS, SQUARED_LENGTHS, fault_bound, fault_code
 from tracer.search.tours import start_tour, tour_length
 
 #: Default small-remainder cutoff: the lowest geometric-mean time over seven TSPLIB instances
@@ -261,7 +261,7 @@ def penalty_settings(instance: Instance, settings: SearchSettings) -> PenaltySet
 def _longest(instance: Instance, settings: SearchSettings) -> float:
     """An upper bound on any length the search records (a bound is at most ~2n edges)."""
     longest = 2.0 * instance.n * float(np.max(instance.matrix, initial=0)) + 1.0
-    return longest * longest if settings.fault == "squared-lengths" else longest
+    return longest * longest if settings.fault == SQUARED_LENGTHS else longest
 
 
 def trail_header(
@@ -294,20 +294,16 @@ def child_order(matrix: NDArray[np.float64], order: str) -> NDArray[np.int32]:
 
 def record_buffer(rows: int, layout: tuple[Column, ...], n: int) -> engine.Record:
     """The kernel's record buffer: one array per engine column in the trail's narrow dtype
-    (so handing a block over is a plain copy); columns this bound does not fill get one
-    row, which the kernel never writes."""
+    (so handing a block over is a plain copy); columns this bound does not fill get a
+    one-row placeholder, which the kernel never writes."""
     dtypes = {c.name: c.dtype for c in layout}
+    spare = {c.name: c.dtype for c in column_layout(ENGINE_COLUMNS, n, False, 1.0, True)}
     return engine.Record(
         *(
-            np.zeros(rows if name in dtypes else 1, dtype=dtypes.get(name, layout_default(name, n)))
+            np.zeros(rows, dtype=dtypes[name]) if name in dtypes else np.zeros(1, spare[name])
             for name in ENGINE_COLUMNS
         )
     )
-
-
-def layout_default(name: str, n: int) -> np.dtype[Any]:
-    """The dtype of an unused engine column's placeholder (any dtype the kernel accepts)."""
-    return column_layout((name,), n, False, 1.0, True)[0].dtype
 
 
 def block(buffer: engine.Record, fill: int, columns: tuple[Column, ...]) -> dict[str, NDArray[Any]]:

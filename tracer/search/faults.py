@@ -9,6 +9,9 @@ from __future__ import annotations
 from tracer.base import PENALTIES, TREE_LINKS
 from tracer.search import engine
 
+#: The fault whose lengths are squared (the search widens its length columns for it).
+SQUARED_LENGTHS = "squared-lengths"
+
 #: Fault name -> (engine code, one line of help).
 FAULTS: dict[str, tuple[int, str]] = {
     "tree-positions": (
@@ -19,7 +22,7 @@ FAULTS: dict[str, tuple[int, str]] = {
         engine.FAULT_STALE_KEYS,
         "the tree routine's key table is not reset between nodes (trees come out too light)",
     ),
-    "squared-lengths": (
+    SQUARED_LENGTHS: (
         engine.FAULT_SQUARED,
         "tree and links are summed over squared edge lengths, so the bound is on another scale",
     ),

@@ -236,10 +236,12 @@ _stop_event: Any = None
 
 
 def _worker_init(event: Any) -> None:
-    """A pool worker leaves Ctrl-C to the parent, and stops when the parent's event is set."""
+    """A pool worker leaves Ctrl-C and SIGTERM to the parent (a terminal or `timeout` sends
+    them to the whole process group), and stops when the parent's event is set."""
     global _stop_event
     _stop_event = event
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
 
 
 def _worker_should_stop() -> bool:

@@ -407,7 +407,7 @@ def read_trail(path: str | Path) -> Trail:
             raise corrupt
         if size:
             raise InputError(p, "stops inside its header frame: not a complete trail", offset=0)
-        raise InputError(p, "empty: not a trail")
+        raise InputError(p, "empty: no header frame, not a trail")
     store = {c.name: np.empty(frames.total, dtype=c.dtype) for c in frames.header.columns}
     pos = 0
     for i, block in enumerate(frames.blocks):
