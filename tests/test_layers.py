@@ -25,6 +25,9 @@ TRACER = ROOT / "tracer"
 #: Adding a public name on purpose? Add it here too, in the same change.
 PUBLIC: dict[str, set[str]] = {
     "tracer.base": {
+        "BlockSource",
+        "NodeBlock",
+        "memory_blocks",
         "SUBTRACTED_TERMS",
         "bound_terms",
         "bound_values",

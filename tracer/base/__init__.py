@@ -100,7 +100,7 @@ from tracer.base.schema import (
     column_layout,
     is_absent,
 )
-from tracer.base.trail import Trail
+from tracer.base.trail import BlockSource, NodeBlock, Trail, memory_blocks
 from tracer.base.tree_shape import ORPHAN, ROOT, tree_shape
 
 __all__ = [
@@ -172,6 +172,7 @@ __all__ = [
     "TREE_LINKS",
     "VISIT",
     "BestUpdate",
+    "BlockSource",
     "Column",
     "Decision",
     "EndInfo",
@@ -183,6 +184,7 @@ __all__ = [
     "Instance",
     "IntArray",
     "Matrix",
+    "NodeBlock",
     "PenaltySettings",
     "PrunetrailError",
     "SolverInfo",
@@ -203,6 +205,7 @@ __all__ = [
     "is_number",
     "length_value",
     "link_value",
+    "memory_blocks",
     "recorded_bound",
     "recorded_length",
     "show_value",

@@ -6,8 +6,9 @@ lives in the base layer, below both.
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, NamedTuple, Protocol
 
 from numpy.typing import NDArray
 
@@ -45,3 +46,69 @@ class Trail:
     def n(self) -> int:
         """The instance's city count."""
         return self.header.instance.n
+
+
+class NodeBlock(NamedTuple):
+    """Consecutive node records: ids `first` .. `first + count - 1`, one array per column."""
+
+    first: int
+    columns: dict[str, NDArray[Any]]
+
+    @property
+    def count(self) -> int:
+        """How many records the block holds."""
+        return len(self.columns[DECISION])
+
+
+class BlockSource(Protocol):
+    """A trail read block by block: everything but the node columns is known up front.
+
+    Streaming analyses consume this so their memory is bounded by one block plus what they
+    carry, whether the blocks come from memory (`memory_blocks`) or from a file.
+    """
+
+    path: str
+    header: TrailHeader
+    best: list[BestUpdate]
+    end: EndInfo | None
+    notice: str | None
+
+    @property
+    def count(self) -> int:
+        """How many node records the trail holds in all."""
+        ...
+
+    def blocks(self) -> Iterator[NodeBlock]:
+        """The node blocks in id order, each decoded afresh (a caller may keep or drop it)."""
+        ...
+
+
+@dataclass
+class _MemoryBlocks:
+    """`BlockSource` over a trail already in memory: views of its columns, `size` at a time."""
+
+    trail: Trail
+    size: int
+
+    def __post_init__(self) -> None:
+        self.path = self.trail.path
+        self.header = self.trail.header
+        self.best = self.trail.best
+        self.end = self.trail.end
+        self.notice = self.trail.notice
+
+    @property
+    def count(self) -> int:
+        return self.trail.count
+
+    def blocks(self) -> Iterator[NodeBlock]:
+        for lo in range(0, self.trail.count, self.size):
+            hi = min(lo + self.size, self.trail.count)
+            yield NodeBlock(lo, {k: v[lo:hi] for k, v in self.trail.columns.items()})
+
+
+def memory_blocks(trail: Trail, size: int = 1 << 16) -> BlockSource:
+    """The trail as a `BlockSource` of `size`-record blocks (tests, small trails)."""
+    if size < 1:
+        raise ValueError("block size must be at least 1")
+    return _MemoryBlocks(trail, size)
