@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass, field
-from typing import Any, NamedTuple, Protocol
+from typing import Any, Protocol
 
 from numpy.typing import NDArray
 
@@ -48,7 +48,8 @@ class Trail:
         return self.header.instance.n
 
 
-class NodeBlock(NamedTuple):
+@dataclass(frozen=True)
+class NodeBlock:
     """Consecutive node records: ids `first` .. `first + count - 1`, one array per column."""
 
     first: int
