@@ -162,9 +162,8 @@ def test_ten_million_cities_in_a_trail_header(small_trail: Path, tmp_path: Path)
 def _answer(trail: Any) -> tuple[Any, ...]:
     """Everything a reader of the trail relies on: not the informational seconds or names,
     nor the end frame's decision counts (the reader compares those it is given with the
-    nodes, so a damaged count is a notice; a damaged key only leaves them out), nor the
-    bound's name: a damaged name changes which kinds are checked (`check --json` lists
-    them in `kinds_checked`), not what was recorded; nor when an update from outside the
+    nodes, so a damaged count is a notice; a damaged key only leaves them out), nor when
+    an update from outside the
     tree (node -1, a start tour) took effect, which matters only through the decisions it
     judges, and those the re-check checks (an update at a node must take effect right
     after it: the reader refuses any other `at`)."""
@@ -184,7 +183,9 @@ def _answer(trail: Any) -> tuple[Any, ...]:
             list(end.tour) if end.tour is not None else last_tour,
         ),
         trail.header.instance.matrix.tobytes(),
-        (solver.cutoff, solver.visit_order, solver.record_under),
+        # the bound's name decides which rule the re-check holds the trail to: a name one
+        # bit from ours is refused, so a damaged name never narrows the check silently
+        (solver.bound, solver.cutoff, solver.visit_order, solver.record_under),
     )
 
 
@@ -236,6 +237,56 @@ def test_bit_flips_in_every_frame_are_never_silent(tmp_path: Path) -> None:
     trail = tmp_path / "small.trail"
     assert main(["solve", str(ORCHARD), "-o", str(trail), "--cutoff", "3", "--json"]) == 0
     assert _flip_every_frame(trail, tmp_path, per_frame=14, bits=(0, 7)) > 100
+
+
+def test_every_bit_of_the_bound_name_refused_or_foreign(small_trail: Path, tmp_path: Path) -> None:
+    """Each single-bit flip in the header's bound name is refused, naming the field and the
+    header's offset; it never reads as a foreign bound, which would silently check less. A
+    foreign name that is not one bit from ours still reads, and the re-check says it checks
+    less (only structure and decisions: its `kinds_checked` leave out the bound's parts)."""
+    data = small_trail.read_bytes()
+    head = header_bytes(small_trail)
+    name = b"tree+links"
+    assert header_map(small_trail)["solver"]["bound"] == name.decode()
+    start = head.index(msgpack.packb(name.decode()))
+    flipped = tmp_path / "flipped.trail"
+    for pos in range(start + 1, start + 1 + len(name)):
+        for bit in range(8):
+            damaged = bytearray(data)
+            damaged[pos] ^= 1 << bit
+            flipped.write_bytes(bytes(damaged))
+            # bit 7 makes the name invalid UTF-8: the frame itself is refused
+            fragments = ("solver.bound", "one bit away") if bit < 7 else ("not a valid frame",)
+            exc = refused(lambda: read_trail(flipped), *fragments)
+            assert isinstance(exc, InputError) and exc.offset == 0, str(exc)
+    ours = read_trail(small_trail)
+    header = header_map(small_trail)
+    header["solver"]["bound"] = "held-karp"  # a foreign solver's own bound
+    foreign = tmp_path / "foreign.trail"
+    foreign.write_bytes(msgpack.packb(header, use_bin_type=True) + data[len(head) :])
+    trail = read_trail(foreign)
+    assert trail.header.solver.bound == "held-karp"
+    full = recheck(ours, TreeIndex(ours.columns, ours.best))
+    narrow = recheck(trail, TreeIndex(trail.columns, trail.best))
+    assert set(narrow.kinds_checked) < set(full.kinds_checked)
+
+
+def test_jsonl_bound_name_one_bit_from_ours_is_refused(tmp_path: Path) -> None:
+    """A JSON Lines header whose bound is one bit from ours is refused at line 1 (an import
+    would write a trail the reader refuses); a foreign name reads."""
+    path = tmp_path / "near.jsonl"
+    for bound, ok in (("tree+linkc", False), ("None", False), ("my-own-bound", True)):
+        header = {
+            "kind": "header",
+            "instance": {"coords": [[0, 0], [1, 0], [1, 1]], "metric": "EUC_2D"},
+            "solver": {"bound": bound},
+        }
+        path.write_text(json.dumps(header) + "\n")
+        if ok:
+            assert read_jsonl(path).header.solver.bound == bound
+            continue
+        exc = refused(lambda: read_jsonl(path), "'solver.bound'", "one bit away")
+        assert isinstance(exc, InputError) and exc.line == 1
 
 
 @pytest.mark.thorough

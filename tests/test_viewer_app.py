@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from textual.widgets import Input
 
 from tests.reference import instance_path
 from tracer.analysis import (
@@ -34,8 +35,9 @@ from tracer.trails import TrailWriter, open_trail
 from tui.app import PrunetrailApp, RecheckProgress
 from tui.bookmarks import sidecar_path
 from tui.cli import main as viewer_main
-from tui.dialogs import BookmarksScreen, FilterDialog, GoToDialog, HelpScreen, StopDialog
+from tui.dialogs import BookmarksScreen, HelpScreen, StopDialog
 from tui.node_list import NodeList
+from tui.prompt_bar import FilterBar, GoToBar
 from tui.stats_screen import StatsScreen
 from tui.why_screen import WhyScreen
 
@@ -82,7 +84,7 @@ def _plain_top(app: PrunetrailApp) -> str:
 
 @pytest.mark.asyncio
 async def test_every_move_binding(faulty):
-    """Each move key (and the go-to dialog) puts the cursor where the tree index says."""
+    """Each move key (and the go-to prompt) puts the cursor where the tree index says."""
     app = _app(faulty)
     async with app.run_test(size=SIZE) as pilot:
         _without_map(app)
@@ -126,16 +128,20 @@ async def test_every_move_binding(faulty):
         assert app.cursor == 0
         nodes = app.query_one("#nodes", NodeList)
         assert nodes.cursor_row == 0
+        bar = app.query_one(GoToBar)
         await pilot.press("i")
-        assert isinstance(app.screen, GoToDialog)
+        assert bar.is_open and bar.display and app.focused is app.query_one("#goto-id")
+        assert not app.query_one("#work").display
         await pilot.press(*"99999", "enter")
-        assert isinstance(app.screen, GoToDialog)
-        assert "expected a node id" in str(app.screen.query_one("#goto-error").render())
-        app.screen.query_one("#goto-id").value = ""
+        assert bar.is_open
+        assert "expected a node id" in str(app.query_one("#goto-id-error").render())
+        app.query_one("#goto-id", Input).value = ""
         await pilot.press(*"1234", "enter")
-        assert not isinstance(app.screen, GoToDialog)
+        assert not bar.is_open and not bar.display
+        assert app.query_one("#work").display and app.focused is nodes
         assert app.cursor == 1234
-        await pilot.press("i", "escape")
+        await pilot.press("i", *"77", "escape")
+        assert not bar.is_open
         assert app.cursor == 1234
 
 
@@ -194,14 +200,15 @@ FILTER_FORMS = [
 ]
 
 
-async def _check_filters(app: PrunetrailApp, pilot, forms: list[str], dialog: bool) -> None:
+async def _check_filters(app: PrunetrailApp, pilot, forms: list[str], prompt: bool) -> None:
     model = app.model
     for text in forms:
-        if dialog:
+        if prompt:
             await pilot.press("f")
-            assert isinstance(app.screen, FilterDialog)
-            app.screen.query_one("#filter").value = text
+            assert app.query_one(FilterBar).is_open
+            app.query_one("#filter", Input).value = text
             await pilot.press("enter")
+            assert not app.query_one(FilterBar).is_open
         else:
             app.apply_filter(text)
         expected = kept_ids(parse_filter(text), model.trail, model.index)
@@ -212,17 +219,18 @@ async def _check_filters(app: PrunetrailApp, pilot, forms: list[str], dialog: bo
 
 
 @pytest.mark.asyncio
-async def test_filter_dialog_forms_and_errors(faulty):
-    """The filter dialog applies a prefix, a depth range and a combined filter; errors stay."""
+async def test_filter_prompt_forms_and_errors(faulty):
+    """The filter prompt applies a prefix, a depth range and a combined filter; errors stay."""
     app = _app(faulty)
     async with app.run_test(size=SIZE) as pilot:
         _without_map(app)
-        await _check_filters(app, pilot, ["0 7", "depth 2..5", FILTER_FORMS[-1]], dialog=True)
+        await _check_filters(app, pilot, ["0 7", "depth 2..5", FILTER_FORMS[-1]], prompt=True)
         await pilot.press("f")
-        app.screen.query_one("#filter").value = "depth 5..2"
+        assert app.query_one("#filter", Input).value == FILTER_FORMS[-1]
+        app.query_one("#filter", Input).value = "depth 5..2"
         await pilot.press("enter")
-        assert isinstance(app.screen, FilterDialog)
-        assert "empty" in str(app.screen.query_one("#filter-error").render())
+        assert app.query_one(FilterBar).is_open
+        assert "empty" in str(app.query_one("#filter-error").render())
         await pilot.press("escape")
         await pilot.press("F")
         assert len(app.model.rows) == app.model.count
@@ -235,7 +243,7 @@ async def test_every_filter_form(faulty):
     app = _app(faulty)
     async with app.run_test(size=SIZE) as pilot:
         _without_map(app)
-        await _check_filters(app, pilot, FILTER_FORMS, dialog=False)
+        await _check_filters(app, pilot, FILTER_FORMS, prompt=False)
 
 
 @pytest.mark.asyncio
@@ -561,14 +569,20 @@ async def test_a_trail_with_no_nodes_yet_takes_every_key(faulty, tmp_path):
 
 @pytest.mark.asyncio
 async def test_results_arriving_under_a_dialog_update_the_main_screen(faulty):
-    """Re-check results that arrive while a dialog is open reach the list, not the dialog."""
+    """Re-check results that arrive while a dialog or a prompt is open reach the main screen."""
     app = _app(faulty)
     async with app.run_test(size=SIZE) as pilot:
         await pilot.press("f")
-        assert isinstance(app.screen, FilterDialog)
+        assert app.query_one(FilterBar).is_open
         app.post_message(RecheckProgress(np.array([4, 9], dtype=np.int64), 100, 3000))
         await pilot.pause()
         assert app.model.wrong_ids.tolist() == [4, 9]
-        assert isinstance(app.screen, FilterDialog)
+        assert app.query_one(FilterBar).is_open
+        await pilot.press("escape", "u")
+        assert isinstance(app.screen, StopDialog)
+        app.post_message(RecheckProgress(np.array([12], dtype=np.int64), 200, 3000))
+        await pilot.pause()
+        assert app.model.wrong_ids.tolist() == [4, 9, 12]
+        assert isinstance(app.screen, StopDialog)
         await pilot.press("escape")
-        assert "2 wrong" in _plain_top(app)
+        assert "3 wrong" in _plain_top(app)

@@ -12,7 +12,7 @@ never read as markup.
 from __future__ import annotations
 
 import threading
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from functools import partial
 from pathlib import Path
@@ -28,7 +28,7 @@ from textual.containers import Horizontal, Vertical
 from textual.message import Message
 from textual.screen import Screen
 from textual.timer import Timer
-from textual.widgets import Footer, ProgressBar, Static
+from textual.widgets import ProgressBar, Static
 from textual.worker import Worker, WorkerState, get_current_worker
 
 from tracer.analysis import (
@@ -48,18 +48,13 @@ from tracer.trails import CorruptTrailError, Follower, follow_trail, open_trail
 from tui.bookmarks import Bookmark, clean_note, load_bookmarks, save_bookmarks, sidecar_path
 from tui.bound_panel import BoundPanel
 from tui.city_map import CityMap
-from tui.dialogs import (
-    BookmarksScreen,
-    FilterDialog,
-    GoToDialog,
-    HelpScreen,
-    NoteDialog,
-    StopDialog,
-)
+from tui.dialogs import BookmarksScreen, HelpScreen, NoteDialog, StopDialog
+from tui.footer import SteadyFooter
 from tui.keys import keymap_path, load_keymap
 from tui.model import ViewerModel
 from tui.node_list import NodeList, NodeListHeader
 from tui.outline import BranchOutline
+from tui.prompt_bar import FilterBar, GoToBar, PromptBar
 from tui.walkthrough import walkthrough
 
 #: Play speeds, in steps per second.
@@ -300,6 +295,9 @@ class PrunetrailApp(App[None]):
         }
         self._work_label = Static(id="work-label")
         self._work_bar = ProgressBar(id="work-bar", show_eta=False)
+        self._work = Horizontal(id="work")
+        self._filter_bar = FilterBar(id="filter-bar")
+        self._goto_bar = GoToBar(id="goto-bar")
         yield self._top
         with Horizontal(id="body"):
             with Vertical(id="list-pane"):
@@ -307,10 +305,13 @@ class PrunetrailApp(App[None]):
                 yield self._node_list
             with self._side:
                 yield from self._panels.values()
-        with Horizontal(id="work"):
+        with self._work:
             yield self._work_label
             yield self._work_bar
-        yield Footer()
+        yield self._filter_bar
+        yield self._goto_bar
+        self._footer = SteadyFooter()
+        yield self._footer
 
     def on_mount(self) -> None:
         self._node_list.focus()
@@ -456,7 +457,34 @@ class PrunetrailApp(App[None]):
     def action_goto(self) -> None:
         """Ask for a node id and go there."""
         if self.model.count:
-            self.push_screen(GoToDialog(self.model.count), self.goto)
+            self._prompt(
+                self._goto_bar,
+                lambda done: self._goto_bar.open_for(self.model.count, done),
+                self.goto,
+            )
+
+    def _prompt(
+        self,
+        bar: PromptBar,
+        opening: Callable[[Callable[[Any], None]], None],
+        then: Callable[[Any], None],
+    ) -> None:
+        """Open a prompt line in the work line's place; `then` gets its value (None: closed)."""
+        for other in (self._filter_bar, self._goto_bar):
+            if other is not bar and other.is_open:
+                other.action_cancel()
+
+        footer = self._footer
+
+        def done(value: Any) -> None:
+            self._work.display = True
+            self._node_list.focus()
+            footer.held = False
+            then(value)
+
+        footer.held = True
+        self._work.display = False
+        opening(done)
 
     # -- runs and play -------------------------------------------------------------------
 
@@ -544,7 +572,8 @@ class PrunetrailApp(App[None]):
 
     def action_filter(self) -> None:
         """Edit the filter."""
-        self.push_screen(FilterDialog(self.model.filter.text), self.apply_filter)
+        bar = self._filter_bar
+        self._prompt(bar, lambda done: bar.open(self.model.filter.text, done), self.apply_filter)
 
     def action_clear_filter(self) -> None:
         """Show every node again."""

@@ -1,8 +1,9 @@
 """The viewer's small modal screens; each hands back its typed result with `dismiss`.
 
-Go to a node, write a filter, build a stop list, write a bookmark note, pick a bookmark,
-read the help. Input is validated here (a filter or stop text is parsed before the dialog
-closes, and its error shown beside it), so the app only ever receives good values.
+Build a stop list, write a bookmark note, pick a bookmark, read the help. Input is validated
+here (a stop text is parsed before the dialog closes, and its error shown beside it), so the
+app only ever receives good values. The filter and go-to prompts are lines in the main
+screen (`tui.prompt_bar`).
 """
 
 from __future__ import annotations
@@ -17,67 +18,12 @@ from textual.screen import ModalScreen
 from textual.widgets import Button, Checkbox, Input, Label, OptionList, Static
 from textual.widgets.option_list import Option
 
-from tracer.analysis import FilterError, StopCondition, parse_filter, parse_stops
+from tracer.analysis import FilterError, StopCondition, parse_stops
 from tui.bookmarks import MAX_NOTE, Bookmark
 
 _CLOSE: list[BindingType] = [
     Binding("escape", "cancel", "Close", id="dialog_cancel"),
 ]
-
-
-class GoToDialog(ModalScreen[int | None]):
-    """Ask for a node id; hands back the id (checked against the trail) or None."""
-
-    BINDINGS: ClassVar[list[BindingType]] = _CLOSE
-
-    def __init__(self, count: int) -> None:
-        super().__init__()
-        self.count = count
-
-    def compose(self) -> ComposeResult:
-        with Vertical(classes="dialog"):
-            yield Label("Go to node", classes="dialog-title")
-            yield Input(placeholder=f"node id, 0..{self.count - 1}", id="goto-id", type="integer")
-            yield Static("", classes="dialog-error", id="goto-error")
-
-    def on_input_submitted(self, event: Input.Submitted) -> None:
-        text = event.value.strip()
-        if text.isdigit() and int(text) < self.count:
-            self.dismiss(int(text))
-            return
-        message = f"expected a node id from 0 to {self.count - 1}"
-        self.query_one("#goto-error", Static).update(Text(message))
-
-    def action_cancel(self) -> None:
-        self.dismiss(None)
-
-
-class FilterDialog(ModalScreen[str | None]):
-    """Edit the filter text; hands back text that parses ("" clears the filter) or None."""
-
-    BINDINGS: ClassVar[list[BindingType]] = _CLOSE
-
-    def __init__(self, current: str) -> None:
-        super().__init__()
-        self.current = current
-
-    def compose(self) -> ComposeResult:
-        with Vertical(classes="dialog"):
-            yield Label("Filter the node list", classes="dialog-title")
-            yield Input(value=self.current, placeholder="e.g. 0 5 2 and depth 3..6", id="filter")
-            yield Static("", classes="dialog-error", id="filter-error")
-            yield Static(Text(FILTER_HELP), classes="dialog-hint")
-
-    def on_input_submitted(self, event: Input.Submitted) -> None:
-        try:
-            parse_filter(event.value)
-        except FilterError as exc:
-            self.query_one("#filter-error", Static).update(Text(str(exc)))
-            return
-        self.dismiss(event.value.strip())
-
-    def action_cancel(self) -> None:
-        self.dismiss(None)
 
 
 class StopDialog(ModalScreen[StopCondition | None]):

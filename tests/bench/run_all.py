@@ -1,6 +1,11 @@
 """Run every benchmark script in tests/bench, then print one summary table with date and machine.
 
-Run: python tests/bench/run_all.py [--only NAME ...] [--list]
+Run: python tests/bench/run_all.py [--quick] [--only NAME ...] [--list]
+
+`--quick` is a smoke run: each script runs with the smaller sizes in `QUICK` (set on its
+module before `main()` is called, or passed as its arguments), so the whole set finishes in
+minutes and shows that every script still runs end to end. Its figures are not the ones to
+hold against the targets; the full run's are.
 
 Convention (see tests/bench/README.md): a benchmark is a file named `bench_*.py` with a
 `main()` that prints its own tables. `main()` may return summary rows, a list of dicts with
@@ -27,12 +32,34 @@ ROOT = HERE.parents[1]
 #: The line a script's driver prints last, followed by its summary rows as JSON.
 MARKER = "@@bench-summary@@ "
 
-#: Runs one script's main() (not its __main__ block) and prints the rows it returned.
+#: Smaller sizes for `--quick`, by script: module constants to set, or arguments for main().
+QUICK: dict[str, dict[str, Any]] = {
+    "bench_cutoff": {"INSTANCES": ("burma14", "ulysses16"), "CUTOFFS": range(4)},
+    "bench_jsonl": {"NODES": 100_000},
+    "bench_oracle": {"NODES": 1_000_000, "REPEATS": 1},
+    "bench_penalties": {"argv": ["ulysses22", "bays29", "--no-both"]},
+    "bench_reader": {"NODES": 1_000_000},
+    "bench_recheck": {"REPEATS": 1},
+    "bench_search": {"REPEATS": 1},
+    "bench_start_tours": {"CITIES": 200, "REPEATS": 1},
+    "bench_sweep": {"CUTOFFS": range(3), "REPEAT": 1, "PASSES": 1},
+    "bench_viewer": {"argv": ["--nodes", "1000000", "--repeats", "3"]},
+}
+
+#: Runs one script's main() (not its __main__ block) and prints the rows it returned. Its
+#: arguments: the script, then a JSON map of `QUICK` settings (empty for a full run).
 _DRIVER = f"""
 import json, runpy, sys
-sys.argv = sys.argv[1:]  # the script sees no arguments of its own
-module = runpy.run_path(sys.argv[0], run_name="bench")
-rows = module["main"]()
+script, quick = sys.argv[1], json.loads(sys.argv[2])
+sys.argv = [script]  # the script sees no arguments of its own
+module = runpy.run_path(script, run_name="bench")
+main = module["main"]
+argv = quick.pop("argv", None)
+for name, value in quick.items():  # main() reads its module's constants when it runs
+    assert name in main.__globals__, f"{{script}} has no constant {{name}}"
+    old = main.__globals__[name]
+    main.__globals__[name] = type(old)(value) if isinstance(old, tuple) else value
+rows = main() if argv is None else main(argv)
 sys.stdout.flush()
 print({MARKER!r} + json.dumps(rows if isinstance(rows, list) else []), flush=True)
 """
@@ -61,19 +88,29 @@ def machine() -> str:
     )
 
 
-def run_script(script: Path) -> tuple[int, float, list[dict[str, Any]]]:
-    """Run one script in its own process, passing its output through.
+def load_average() -> str:
+    """The machine's load averages, as /proc/loadavg gives them (others share the cores)."""
+    try:
+        return " ".join(Path("/proc/loadavg").read_text().split()[:3])
+    except OSError:
+        return "unknown"
+
+
+def run_script(script: Path, quick: bool = False) -> tuple[int, float, list[dict[str, Any]]]:
+    """Run one script in its own process (with `QUICK` sizes if `quick`), passing its
+    output through.
 
     Returns:
         (exit status, seconds taken, the summary rows it returned).
     """
     began = time.perf_counter()
+    settings = QUICK.get(script.stem, {}) if quick else {}
     env = {
         **os.environ,
         "PYTHONPATH": os.pathsep.join([str(ROOT), os.environ.get("PYTHONPATH", "")]),
     }
     proc = subprocess.Popen(
-        [sys.executable, "-c", _DRIVER, str(script)],
+        [sys.executable, "-c", _DRIVER, str(script), json.dumps(settings, default=list)],
         stdout=subprocess.PIPE,
         text=True,
         cwd=ROOT,
@@ -113,6 +150,7 @@ def main() -> int:
     parser = argparse.ArgumentParser(description="Run every tests/bench/bench_*.py once.")
     parser.add_argument("--only", nargs="+", metavar="NAME", help="run only these (bench_x or x)")
     parser.add_argument("--list", action="store_true", help="list the scripts and stop")
+    parser.add_argument("--quick", action="store_true", help="smaller sizes: a smoke run")
     args = parser.parse_args()
     scripts = discover()
     if args.only:
@@ -122,13 +160,16 @@ def main() -> int:
         print("\n".join(s.name for s in scripts))
         return 0
     started = datetime.datetime.now().astimezone()
+    load_before = load_average()
     results = []
     for script in scripts:
         print(f"\n## {script.name}\n", flush=True)
-        status, seconds, rows = run_script(script)
+        status, seconds, rows = run_script(script, args.quick)
         results.append((script.stem, status, seconds, rows))
-    print(f"\n## summary: {started:%Y-%m-%d %H:%M %Z}\n")
-    print(f"machine: {machine()}\n")
+    mode = "quick (smaller sizes: not for the targets)" if args.quick else "full"
+    print(f"\n## summary: {started:%Y-%m-%d %H:%M %Z}, {mode} run\n")
+    print(f"machine: {machine()}")
+    print(f"load average (1, 5, 15 min): {load_before} before, {load_average()} after\n")
     print("\n".join(summary_table(results)))
     return 0 if all(status == 0 for _, status, _, _ in results) else 1
 

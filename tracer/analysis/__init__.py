@@ -36,6 +36,7 @@ from tracer.analysis.rechecking import (
 )
 from tracer.analysis.spanning import Remainder, SpanningTree, remainder, spanning_tree
 from tracer.analysis.stats import FINAL_INCUMBENT, DepthStats, depth_stats
+from tracer.analysis.streaming import Window, stream_recheck, stream_stats, values_at, windows
 from tracer.analysis.tree_index import TreeIndex
 from tracer.analysis.why import CULPRITS, WhyReport, explain, remainder_instance
 
@@ -64,6 +65,7 @@ __all__ = [
     "StopCondition",
     "TreeIndex",
     "WhyReport",
+    "Window",
     "best_completions",
     "city_layout",
     "compare_trails",
@@ -86,4 +88,8 @@ __all__ = [
     "remainder_instance",
     "scaled_layout",
     "spanning_tree",
+    "stream_recheck",
+    "stream_stats",
+    "values_at",
+    "windows",
 ]

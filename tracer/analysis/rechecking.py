@@ -23,6 +23,7 @@ fields are) and keeps the first few findings in id order.
 
 from __future__ import annotations
 
+import copy
 import math
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -240,16 +241,39 @@ class _FrameFinding:
     detail: str
 
 
+@dataclass(frozen=True)
+class _FramePlan:
+    """One incumbent frame: where its findings are shown, its node (-1: none in the
+    trail), its length and tour, and its findings before and after its node's."""
+
+    at: int
+    node: int
+    recorded: Value
+    tour: tuple[int, ...]
+    own: list[_FrameFinding]
+    later: list[_FrameFinding]
+
+
 class _Rule:
     """The trail's settings, matrix and tolerance, shared by every chunk."""
 
-    def __init__(self, trail: Trail, index: TreeIndex, strict: bool = False) -> None:
+    def __init__(
+        self, trail: Trail, index: TreeIndex, strict: bool = False, *, total: int | None = None
+    ) -> None:
         solver = trail.header.solver
         self.trail = trail
         self.index = index
         self.strict = strict
         self._chains: NDArray[np.int32] | None = None
         self.columns = trail.columns
+        #: The rows are ids 0.. of the whole trail, unless this is a window (`view`): then
+        #: rows [0, seeded) are carried ancestors (their ids and partial-chain roots in
+        #: `ids` and `roots`) and rows from `seeded` on are ids `first`, `first + 1`, ...
+        self.total = trail.count if total is None else total
+        self.seeded = 0
+        self.first = 0
+        self.ids: NDArray[np.int64] | None = None
+        self.roots: NDArray[np.int64] | None = None
         self.n = trail.n
         self.matrix: NDArray[Any] = np.ascontiguousarray(trail.header.instance.matrix)
         self.exact = self.matrix.dtype.kind in "iu"
@@ -268,7 +292,43 @@ class _Rule:
         self.word, self.bit = city_bits(self.n)
         self.full = all_cities(self.n)
         self.frame_nodes = np.array(sorted({b.node for b in trail.best}), dtype=np.int64)
-        self.frame_findings = self._check_frames()
+        self.frame_plan = self._plan_frames()
+
+    def view(
+        self,
+        window: Trail,
+        index: TreeIndex,
+        ids: NDArray[np.int64],
+        roots: NDArray[np.int64],
+        seeded: int,
+    ) -> _Rule:
+        """The same rule over a window of rows: `seeded` carried ancestors (ids `ids`,
+        partial-chain roots `roots`), then consecutive records from id `ids[seeded]`."""
+        rule = copy.copy(self)
+        rule.trail, rule.index, rule.columns = window, index, window.columns
+        rule.ids, rule.roots, rule.seeded = ids, roots, seeded
+        rule.first = int(ids[seeded]) if seeded < len(ids) else 0
+        rule._chains = None
+        return rule
+
+    def gid(self, row: int) -> int:
+        """The trail id of a row."""
+        return row if self.ids is None else int(self.ids[row])
+
+    def gids(self, lo: int, hi: int) -> NDArray[np.int64]:
+        """The trail ids of the rows [lo, hi)."""
+        if self.ids is None:
+            return np.arange(lo, hi, dtype=np.int64)
+        return self.ids[lo:hi]
+
+    def row(self, node: int) -> int:
+        """The row of a trail id at or after the window's first record."""
+        return node - self.first + self.seeded
+
+    def root_ids(self, rows: NDArray[Any]) -> NDArray[np.int64]:
+        """The trail ids of rows named as partial-chain roots (a carried row: its own root)."""
+        rows = rows.astype(np.int64)
+        return rows if self.roots is None else self.roots[rows]
 
     @property
     def kinds(self) -> tuple[str, ...]:
@@ -302,6 +362,7 @@ class _Rule:
                     self.matrix.astype(np.float64),
                     0.0 if self.exact else REL_TOL,
                     self.scale,
+                    self.seeded,
                 )
             else:
                 self._chains = np.arange(self.trail.count, dtype=np.int32)
@@ -326,18 +387,19 @@ class _Rule:
         total = self.matrix[cities, np.roll(cities, -1)].sum()
         return int(total) if self.exact else float(total)
 
-    def _check_frames(self) -> list[_FrameFinding]:
-        """Every incumbent frame against its tour, its node and the frame before it."""
-        out: list[_FrameFinding] = []
-        count = self.trail.count
-        decision = self.columns[DECISION]
+    def _plan_frames(self) -> list[_FramePlan]:
+        """Every incumbent frame against its tour and the frame before it (its node is
+        checked when that node's rows are at hand, `frames_in`)."""
+        out: list[_FramePlan] = []
+        count = self.total
         before = math.inf
         for frame in self.trail.best:
             recorded = _plain(frame.length, self.exact)
             node = frame.node if 0 <= frame.node < count else -1
             at = node if node >= 0 else min(max(frame.at, 0), count - 1)
+            own: list[_FrameFinding] = []
             if sorted(frame.tour) != list(range(self.n)) or frame.tour[:1] != (START,):
-                out.append(
+                own.append(
                     _FrameFinding(
                         at,
                         recorded,
@@ -348,26 +410,14 @@ class _Rule:
             else:
                 length = self.tour_length(frame.tour)
                 if not self.agrees(np.array([frame.length]), np.array([length]))[0]:
-                    out.append(
+                    own.append(
                         _FrameFinding(
                             at, recorded, length, "the best frame's length is not its tour's"
                         )
                     )
-            if node >= 0:
-                if decision[node] != Decision.TOUR_BETTER:
-                    out.append(
-                        _FrameFinding(
-                            at, recorded, None, "the best frame names a node that is not a tour"
-                        )
-                    )
-                elif tuple(self.index.path(node)) != frame.tour:
-                    out.append(
-                        _FrameFinding(
-                            at, recorded, None, "the best frame's tour is not its node's path"
-                        )
-                    )
+            later: list[_FrameFinding] = []
             if frame.length >= before:
-                out.append(
+                later.append(
                     _FrameFinding(
                         at,
                         recorded,
@@ -376,6 +426,36 @@ class _Rule:
                     )
                 )
             before = min(before, frame.length)
+            out.append(_FramePlan(at, node, recorded, frame.tour, own, later))
+        return out
+
+    def frames_in(self, lo: int, hi: int) -> list[_FrameFinding]:
+        """The wrong incumbent frames shown at the rows [lo, hi), in frame order."""
+        if hi <= lo:
+            return []
+        first, last = self.gid(lo), self.gid(hi - 1)
+        decision = self.columns[DECISION]
+        out: list[_FrameFinding] = []
+        for plan in self.frame_plan:
+            at, recorded = plan.at, plan.recorded
+            if not first <= at <= last:
+                continue
+            out += plan.own
+            if plan.node >= 0:
+                row = self.row(plan.node)
+                if decision[row] != Decision.TOUR_BETTER:
+                    out.append(
+                        _FrameFinding(
+                            at, recorded, None, "the best frame names a node that is not a tour"
+                        )
+                    )
+                elif tuple(self.index.path(row)) != plan.tour:
+                    out.append(
+                        _FrameFinding(
+                            at, recorded, None, "the best frame's tour is not its node's path"
+                        )
+                    )
+            out += plan.later
         return out
 
 
@@ -388,8 +468,10 @@ def _partial_chains(
     d: np.ndarray,
     rel: float,
     scale: float,
+    seeded: int,
 ) -> np.ndarray:
-    """`_Rule.chains` in one pre-order pass.
+    """`_Rule.chains` in one pre-order pass (the first `seeded` rows, carried ancestors of a
+    window, only set up the stack: each is its own root here, translated by the caller).
 
     A node's recorded partial follows from upstream when it is its parent's recorded
     partial plus the edge (the error came from above), or when its error is its previous
@@ -421,6 +503,8 @@ def _partial_chains(
         edge = d[city[p], city[i]]
         true[level] = true[level - 1] + edge
         error[level] = float(partial[i]) - true[level]
+        if i < seeded:
+            continue
         step = float(partial[p]) + edge
         if abs(float(partial[i]) - step) <= rel * max(abs(step), scale):
             out[i] = out[p]
@@ -471,22 +555,45 @@ def recheck(
     stop = trail.count if stop is None else min(stop, trail.count)
     start = max(0, min(start, stop))
     rule = _Rule(trail, index, strict)
-    report = RecheckReport(
-        nodes_checked=stop - start,
-        wrong=0,
-        by_kind=dict.fromkeys(KINDS, 0),
-        kinds_checked=rule.kinds,
-        start=start,
-        stop=stop,
-        strict=strict,
-    )
-    step = max(1, min(CHUNK_CELLS // max(rule.n, 1), CHUNK_NODES))
-    wrong_parts: list[NDArray[np.int64]] = []
-    missed_parts: list[NDArray[np.int64]] = []
+    tally = Tally(rule, start, stop, first)
+    step = chunk_rows(rule.n)
     for lo in range(start, stop, step):
         hi = min(stop, lo + step)
+        tally.add(rule, lo, hi)
+        if on_progress is not None:
+            on_progress(hi - start, stop - start)
+    return tally.finish()
+
+
+def chunk_rows(n: int) -> int:
+    """How many records one chunk checks at a time, for `n` cities (bounds its memory)."""
+    return max(1, min(CHUNK_CELLS // max(n, 1), CHUNK_NODES))
+
+
+class Tally:
+    """The report built chunk by chunk, in id order, over the id range [start, stop)."""
+
+    def __init__(self, rule: _Rule, start: int, stop: int, first: int) -> None:
+        self.first = first
+        self.report = RecheckReport(
+            nodes_checked=stop - start,
+            wrong=0,
+            by_kind=dict.fromkeys(KINDS, 0),
+            kinds_checked=rule.kinds,
+            start=start,
+            stop=stop,
+            strict=rule.strict,
+        )
+        self._wrong: list[NDArray[np.int64]] = []
+        self._missed: list[NDArray[np.int64]] = []
+
+    def add(self, rule: _Rule, lo: int, hi: int) -> None:
+        """Check the rows [lo, hi) of the rule's trail (or window) and count them in."""
+        report, first = self.report, self.first
         checks = _check_chunk(rule, lo, hi)
-        frames = [f for f in rule.frame_findings if lo <= f.id < hi]
+        frames = rule.frames_in(lo, hi)
+        at = rule.gid(lo) if hi > lo else 0
+        frame_rows = [f.id - at for f in frames]
         wrong = np.zeros(hi - lo, dtype=np.bool_)
         for kind in KINDS:
             bad = np.zeros(hi - lo, dtype=np.bool_)
@@ -494,13 +601,13 @@ def recheck(
                 if check.kind == kind:
                     bad |= check.bad
             if kind == "tour":
-                bad[[f.id - lo for f in frames]] = True
+                bad[frame_rows] = True
             report.by_kind[kind] += int(bad.sum())
             wrong |= bad
         report.wrong += int(wrong.sum())
-        wrong_parts.append(lo + np.flatnonzero(wrong).astype(np.int64))
+        self._wrong.append(at + np.flatnonzero(wrong).astype(np.int64))
         rooted = np.zeros(hi - lo, dtype=np.bool_)
-        rooted[[f.id - lo for f in frames]] = True
+        rooted[frame_rows] = True
         report.roots += len(frames)
         knocks: list[tuple[_Check, NDArray[np.bool_]]] = []
         for check in checks:
@@ -516,7 +623,7 @@ def recheck(
             if check.kind == MISSED:
                 missed |= check.bad
         report.missed_prunes += int(missed.sum())
-        missed_parts.append(lo + np.flatnonzero(missed).astype(np.int64))
+        self._missed.append(at + np.flatnonzero(missed).astype(np.int64))
         room = first - len(report.first)
         if room > 0 and wrong.any():
             report.first.extend(_findings(rule, lo, checks, frames, wrong, room))
@@ -531,13 +638,15 @@ def recheck(
             report.first_missed.extend(
                 _findings(rule, lo, checks, [], missed, room, kinds=(MISSED,))
             )
-        if on_progress is not None:
-            on_progress(hi - start, stop - start)
-    if wrong_parts:
-        report.wrong_ids = np.concatenate(wrong_parts)
-    if missed_parts:
-        report.missed_ids = np.concatenate(missed_parts)
-    return report
+
+    def finish(self) -> RecheckReport:
+        """The report, with the wrong and missed ids gathered."""
+        report = self.report
+        if self._wrong:
+            report.wrong_ids = np.concatenate(self._wrong)
+        if self._missed:
+            report.missed_ids = np.concatenate(self._missed)
+        return report
 
 
 def _count_knock_ons(report: RecheckReport, knocks: list[tuple[_Check, NDArray[np.bool_]]]) -> None:
@@ -571,8 +680,12 @@ def recompute_node(trail: Trail, index: TreeIndex, node: int) -> dict[str, float
     """
     if not 0 <= node < trail.count:
         raise IndexError(f"node {node} is not in the trail (0..{trail.count - 1})")
-    rule = _Rule(trail, index)
-    cols = trail.columns
+    return recompute_row(_Rule(trail, index), node)
+
+
+def recompute_row(rule: _Rule, node: int) -> dict[str, float | int | None]:
+    """`recompute_node` at one row of the rule's trail or window."""
+    cols, index = rule.columns, rule.index
     ids = np.array([node], dtype=np.int64)
     city = cols[CITY][node : node + 1].astype(np.intp)
     parent = index.parent[node : node + 1]
@@ -624,6 +737,7 @@ def _findings(
     out: list[Finding] = []
     for j in np.flatnonzero(rows)[:room]:
         node = lo + int(j)
+        shown = rule.gid(node)
         path = tuple(rule.index.path(node))
         here: list[Finding] = []
         for check in checks:
@@ -639,7 +753,7 @@ def _findings(
                 numbers, detail = _arithmetic(rule, node, check, j)
             here.append(
                 Finding(
-                    node,
+                    shown,
                     check.kind,
                     check.field,
                     _shown(check.recorded, j, check.field, rule.exact, None),
@@ -653,9 +767,9 @@ def _findings(
                 )
             )
         here += [
-            Finding(node, "tour", "best", f.recorded, f.recomputed, path, f.detail)
+            Finding(shown, "tour", "best", f.recorded, f.recomputed, path, f.detail)
             for f in frames
-            if f.id == node
+            if f.id == shown
         ]
         out += sorted(here, key=lambda f: kinds.index(f.kind) if f.kind in kinds else 0)
     return out[:room]
@@ -671,7 +785,7 @@ def _recorded(rule: _Rule, name: str, node: int) -> Value:
 
 def _arithmetic(rule: _Rule, node: int, check: _Check, j: int) -> tuple[dict[str, Value], str]:
     """The numbers a decision was judged on, and one line saying what the rule wanted."""
-    values = recompute_node(rule.trail, rule.index, node)
+    values = recompute_row(rule, node)
     incumbent = values["incumbent"]
     decision = DECISION_NAMES[int(rule.columns[DECISION][node])]
     wanted = DECISION_NAMES[int(check.recomputed[j])] if check.recomputed is not None else "?"
@@ -762,7 +876,7 @@ def _hint(
             return "this tree weight equals the previous sibling's"
     if kind == "partial":
         recorded = _recorded(rule, PARTIAL, node)
-        true = recompute_node(rule.trail, index, node)[PARTIAL]
+        true = recompute_row(rule, node)[PARTIAL]
         city = rule.columns[CITY]
         edge = float(rule.matrix[int(city[parent]), int(city[before])])
         if (
@@ -824,7 +938,9 @@ def _walk(
     for slot, node in enumerate(seeds, start=1):
         path = np.array(rule.index.path(int(node)), dtype=np.intp)
         np.bitwise_or.at(masks[slot], rule.word[path], rule.bit[path])
-        partial[slot] = rule.matrix[path[:-1], path[1:]].sum()
+        # from slot 0's start city, as inside the chunk (a root elsewhere is wrong, but its
+        # partial must not depend on where the chunks are cut)
+        partial[slot] = rule.matrix[START, path[0]] + rule.matrix[path[:-1], path[1:]].sum()
         last[slot] = path[-1]
     last[base:] = city
     source = np.zeros(m, dtype=np.intp)
@@ -967,7 +1083,8 @@ def _has_child(index: TreeIndex, lo: int, hi: int) -> NDArray[np.bool_]:
 def _check_chunk(rule: _Rule, lo: int, hi: int) -> list[_Check]:
     """Every field check over the ids [lo, hi)."""
     cols = rule.columns
-    ids = np.arange(lo, hi)
+    rows = np.arange(lo, hi)
+    ids = rule.gids(lo, hi)
     city = cols[CITY][lo:hi].astype(np.intp)
     depth = cols[DEPTH][lo:hi]
     decision = cols[DECISION][lo:hi]
@@ -984,7 +1101,7 @@ def _check_chunk(rule: _Rule, lo: int, hi: int) -> list[_Check]:
     bound = parts.total(partial)
     closing = rule.matrix[city, START]
     length = partial + closing
-    incumbent = rule.index.incumbent_at(ids)
+    incumbent = rule.index.incumbent_at(rows)
 
     checks = [
         _Check(
@@ -1096,7 +1213,7 @@ def _attribute(
     """
     if not any(check.bad.any() for check in checks):
         return  # a clean chunk: nothing to attribute (the common case, kept cheap)
-    ids = np.arange(lo, hi, dtype=np.int64)
+    rows = np.arange(lo, hi, dtype=np.int64)
     chains = rule.chains[lo:hi].astype(np.int64)
     m = hi - lo
     partial_bad = np.zeros(m, dtype=np.bool_)
@@ -1106,13 +1223,13 @@ def _attribute(
             partial_bad |= check.bad
         elif check.kind in ("tree", "link_in", "link_out") or check.field == PENALTY:
             part_bad |= check.bad
-    upstream = np.where(part_bad, ids, chains)
+    upstream = rule.root_ids(np.where(part_bad, rows, chains))
     inputs_bad = part_bad | partial_bad
     follows = _follows_recorded(rule, lo, hi, incumbent, groups)
     for check in checks:
         if check.kind == "partial":
-            check.knock = check.bad & (chains != ids)
-            check.root_of = chains.copy()
+            check.knock = check.bad & (chains != rows)
+            check.root_of = rule.root_ids(chains)
         elif check.field == BOUND and check.kind == "bound":
             recorded = rule.columns[BOUND][lo:hi]
             total = bound_values(rule.trail, slice(lo, hi)) if rule.ours else None

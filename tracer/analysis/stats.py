@@ -15,6 +15,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+from numba import njit
 from numpy.typing import NDArray
 
 from tracer.analysis.tree_index import TreeIndex
@@ -25,8 +26,11 @@ from tracer.base import (
     DEPTH,
     NO_BOUND,
     TREE,
+    BestUpdate,
     Decision,
+    EndInfo,
     Trail,
+    TrailHeader,
     bound_values,
 )
 
@@ -207,9 +211,13 @@ def _finite(value: float | np.floating[Any]) -> float | None:
 
 def final_length(trail: Trail) -> float | None:
     """The best tour length the search ended with (the end frame's, else the last update)."""
-    if trail.end is not None and trail.end.length is not None:
-        return float(trail.end.length)
-    lengths = [b.length for b in trail.best if math.isfinite(b.length)]
+    return _final_length(trail.best, trail.end)
+
+
+def _final_length(best: list[BestUpdate], end: EndInfo | None) -> float | None:
+    if end is not None and end.length is not None:
+        return float(end.length)
+    lengths = [b.length for b in best if math.isfinite(b.length)]
     return min(lengths) if lengths else None
 
 
@@ -224,51 +232,105 @@ def depth_stats(
         completions: best possible completion of every node (the oracle's), NaN where
             unknown; None to measure tightness against the final incumbent instead.
     """
-    counts = depth_decision_counts(trail)
-    rows = counts.shape[0]
-    depth = trail.columns[DEPTH].astype(np.intp)
-    bounds = bound_values(trail, slice(None))
-    bounded = bounded_mask(trail, bounds)
-    evaluations = np.bincount(depth[bounded], minlength=rows)[:rows].astype(np.int64)
-    reference = final_length(trail)
-    if completions is not None:
-        denominator = np.asarray(completions, dtype=np.float64)
-        source = ORACLE
-    else:
-        denominator = np.full(trail.count, np.nan if reference is None else reference)
-        source = FINAL_INCUMBENT
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = bounds / denominator
-    known = bounded & np.isfinite(ratio) & (denominator > 0)
-    at = depth[known]
-    sums = np.bincount(at, weights=ratio[known], minlength=rows)[:rows]
-    seen = np.bincount(at, minlength=rows)[:rows]
-    worst = np.full(rows, np.inf)
-    np.minimum.at(worst, at, ratio[known])
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.where(seen > 0, sums / seen, np.nan)
-    worst[seen == 0] = np.nan
-    return DepthStats(
-        n=trail.n,
-        decisions=counts,
-        bound_evaluations=evaluations,
-        tightness_mean=np.asarray(mean, dtype=np.float64),
-        tightness_worst=worst,
-        tightness_source=source,
-        reference_length=reference,
-        improvements=_improvements(trail, index),
-        integral=trail.header.instance.integral,
-    )
+    del index  # the updates' depths are read from the columns, as a streamed trail's are
+    tally = DepthTally(trail.header, trail.best, trail.end)
+    tally.add(trail, 0, completions)
+    return tally.finish(oracle=completions is not None)
 
 
-def _improvements(trail: Trail, index: TreeIndex) -> list[Improvement]:
-    """The updates that lowered the incumbent, in the order they took effect."""
-    out: list[Improvement] = []
-    best = math.inf
-    for update in sorted(trail.best, key=lambda b: b.at):
-        if update.length < best:
-            best = update.length
-            node = int(update.node)
-            depth = int(index.depth[node]) if 0 <= node < index.count else None
-            out.append(Improvement(node, int(update.at), float(update.length), depth))
-    return out
+class DepthTally:
+    """`depth_stats` built block by block in id order: every sum is added in the same
+    order whatever the blocks, so a streamed trail gives exactly the in-memory figures."""
+
+    def __init__(self, header: TrailHeader, best: list[BestUpdate], end: EndInfo | None) -> None:
+        self.header = header
+        self.best = best
+        self.end = end
+        self.n = header.instance.n
+        rows = self.n
+        self.decisions = np.zeros((rows, _DECISIONS), dtype=np.int64)
+        self.evaluations = np.zeros(rows, dtype=np.int64)
+        self.sums = np.zeros(rows, dtype=np.float64)
+        self.seen = np.zeros(rows, dtype=np.int64)
+        self.worst = np.full(rows, np.inf)
+        self.reference = _final_length(best, end)
+        self._frame_nodes = np.array(sorted({int(b.node) for b in best}), dtype=np.int64)
+        self._depths: dict[int, int] = {}
+
+    def _grow(self, rows: int) -> None:
+        """Room for depths up to `rows - 1`."""
+        have = len(self.sums)
+        if rows <= have:
+            return
+        more = rows - have
+        self.decisions = np.vstack([self.decisions, np.zeros((more, _DECISIONS), np.int64)])
+        self.evaluations = np.append(self.evaluations, np.zeros(more, np.int64))
+        self.sums = np.append(self.sums, np.zeros(more))
+        self.seen = np.append(self.seen, np.zeros(more, np.int64))
+        self.worst = np.append(self.worst, np.full(more, np.inf))
+
+    def add(self, block: Trail, first: int, completions: NDArray[np.float64] | None = None) -> None:
+        """Count in consecutive records (ids from `first`), with their completions if any."""
+        counts = depth_decision_counts(block)
+        self._grow(counts.shape[0])
+        rows = len(self.sums)
+        self.decisions[: counts.shape[0]] += counts
+        depth = block.columns[DEPTH].astype(np.intp)
+        bounds = bound_values(block, slice(None))
+        bounded = bounded_mask(block, bounds)
+        self.evaluations += np.bincount(depth[bounded], minlength=rows)[:rows]
+        if completions is not None:
+            denominator = np.asarray(completions, dtype=np.float64)
+        else:
+            denominator = np.full(block.count, np.nan if self.reference is None else self.reference)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ratio = bounds / denominator
+        known = bounded & np.isfinite(ratio) & (denominator > 0)
+        at = depth[known]
+        _add_in_order(self.sums, at, ratio[known])
+        self.seen += np.bincount(at, minlength=rows)[:rows]
+        np.minimum.at(self.worst, at, ratio[known])
+        here = self._frame_nodes[
+            (self._frame_nodes >= first) & (self._frame_nodes < first + block.count)
+        ]
+        for node in here.tolist():
+            self._depths[node] = int(depth[node - first])
+
+    def finish(self, *, oracle: bool) -> DepthStats:
+        """The figures of every record added."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = np.where(self.seen > 0, self.sums / self.seen, np.nan)
+        worst = self.worst.copy()
+        worst[self.seen == 0] = np.nan
+        return DepthStats(
+            n=self.n,
+            decisions=self.decisions,
+            bound_evaluations=self.evaluations,
+            tightness_mean=np.asarray(mean, dtype=np.float64),
+            tightness_worst=worst,
+            tightness_source=ORACLE if oracle else FINAL_INCUMBENT,
+            reference_length=self.reference,
+            improvements=self._improvements(),
+            integral=self.header.instance.integral,
+        )
+
+    def _improvements(self) -> list[Improvement]:
+        """The updates that lowered the incumbent, in the order they took effect."""
+        out: list[Improvement] = []
+        best = math.inf
+        for update in sorted(self.best, key=lambda b: b.at):
+            if update.length < best:
+                best = update.length
+                node = int(update.node)
+                out.append(
+                    Improvement(node, int(update.at), float(update.length), self._depths.get(node))
+                )
+        return out
+
+
+@njit(cache=True, nogil=True)
+def _add_in_order(sums: NDArray[np.float64], at: NDArray[np.intp], values: NDArray[Any]) -> None:
+    """sums[at[i]] += values[i], in order of i (so the sum of one block after another is
+    the sum of them all at once, to the last bit)."""
+    for i in range(at.shape[0]):
+        sums[at[i]] += values[i]

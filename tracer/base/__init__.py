@@ -10,6 +10,7 @@ from tracer.base.header import (
     PenaltySettings,
     SolverInfo,
     TrailHeader,
+    bound_name,
     from_wire,
     to_wire,
 )
@@ -192,6 +193,7 @@ __all__ = [
     "TrailHeader",
     "absent_value",
     "best_tour",
+    "bound_name",
     "bound_terms",
     "bound_values",
     "city_value",

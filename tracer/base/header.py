@@ -43,7 +43,43 @@ NO_BOUND = "none"
 #: tree+links with a penalty per unvisited city (Lagrangian relaxation of the degrees).
 PENALTIES = "penalties"
 
+#: Every bound name with a rule of ours (the re-check checks each against that rule).
+OUR_BOUNDS = (TREE_LINKS, PENALTIES, NO_BOUND)
+
 _LENGTH_DTYPES = ("<i4", "<i8", "<f8")
+
+
+def bound_name_clash(name: str) -> str | None:
+    """Our bound name that `name` differs from by a single flipped bit, if any.
+
+    Any name that is not ours is a foreign solver's bound, re-checked only for structure and
+    decisions. A name one bit from ours is far likelier a damaged byte than a foreign name,
+    and reading it as foreign would silently narrow the re-check, so readers refuse it.
+    """
+    data = name.encode("utf-8", "surrogatepass")
+    for ours in OUR_BOUNDS:
+        word = ours.encode()
+        if len(word) == len(data):
+            diff = [a ^ b for a, b in zip(word, data, strict=True) if a != b]
+            if len(diff) == 1 and diff[0] & (diff[0] - 1) == 0:
+                return ours
+    return None
+
+
+def bound_name(value: Any) -> str:
+    """A bound's name from a file: ours, or a foreign solver's that cannot be mistaken for ours.
+
+    Raises:
+        FieldError: not text of at most `MAX_WORD` characters, or one bit from our names.
+    """
+    name = text_value(value, MAX_WORD)
+    clash = bound_name_clash(name)
+    if clash is not None:
+        raise FieldError(
+            f"{name!r} is one bit away from our bound {clash!r}: a damaged file? (a foreign "
+            "bound's name must differ from ours by more)"
+        )
+    return name
 
 
 class HeaderError(ValueError):
@@ -176,6 +212,13 @@ def _text(value: Any, what: str, limit: int = MAX_TEXT) -> str:
         return text_value(value, limit)
     except FieldError as exc:
         raise HeaderError(f"{what} {exc}") from None
+
+
+def _bound(value: Any) -> str:
+    try:
+        return bound_name(value)
+    except FieldError as exc:
+        raise HeaderError(f"solver.bound {exc}") from None
 
 
 def _flag(value: Any, what: str) -> bool:
@@ -347,7 +390,7 @@ def _solver(raw: Any, n: int) -> SolverInfo:
         )
         prefix = tuple(int(c) for c in under)
     return SolverInfo(
-        bound=_text(raw.get("bound", TREE_LINKS), "solver.bound", MAX_WORD),
+        bound=_bound(raw.get("bound", TREE_LINKS)),
         cutoff=min(int(cutoff), n),
         engine=_text(raw.get("engine", ""), "solver.engine"),
         order=_optional_text(raw.get("order"), "solver.order"),

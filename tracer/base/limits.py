@@ -52,6 +52,15 @@ MAX_WORD = 60
 MAX_TRAIL_NODES = 1 << 32
 #: Most nodes in one node block (so a block's columns are bounded before decompression).
 MAX_BLOCK_NODES = 1 << 20
+#: Most decoded bytes a trail's node columns may claim per byte of node frames read so far.
+#: zstd decodes constant data at up to ~30 000:1, so without this a 15 kB file can claim
+#: gigabytes of columns; our own trails decode to 6-35 times their size (35: a full
+#: enumeration recorded as decisions only, the most regular there is), so 1024 leaves a
+#: wide margin and a file claiming more is refused before anything is allocated.
+MAX_DECODED_RATIO = 1024
+#: Decoded bytes always allowed besides `MAX_DECODED_RATIO` (so a small trail of a very
+#: regular search is never refused): one full block of the widest row of a small instance.
+DECODED_ALLOWANCE = 64 * 1024 * 1024
 #: Largest instance file read (TSPLIB or CSV), in bytes: it is read whole, as text.
 MAX_FILE_BYTES = 512 * 1024 * 1024
 #: Largest frame (or JSON line) in bytes: a full block of the widest columns fits.

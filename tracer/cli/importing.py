@@ -8,7 +8,7 @@ from pathlib import Path
 from rich.text import Text
 
 from tracer.cli._console import emit_json, out
-from tracer.trails import import_jsonl
+from tracer.trails import STREAM_CHUNK_BYTES, ImportSummary, import_jsonl, stream_jsonl
 
 _EPILOG = """\
 The JSON Lines format (one object per line: a header, then node, best and end lines) is
@@ -40,22 +40,35 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         metavar="RUN.trail",
         help="trail to write (default: the source's name with .trail)",
     )
+    p.add_argument(
+        "--chunk-mb",
+        type=float,
+        default=STREAM_CHUNK_BYTES / 2**20,
+        metavar="MB",
+        help="a trace in depth-first pre-order is written as it is read, this many MB of "
+        "lines at a time, so memory stays a small multiple of it (default %(default)g); "
+        "other orders are read whole",
+    )
     p.add_argument("--json", action="store_true", help="print one JSON object")
     p.set_defaults(run=run)
 
 
 def run(args: argparse.Namespace) -> int:
-    """Import a trace and report what it held."""
+    """Import a trace (streamed where its order allows) and report what it held."""
     target = Path(args.output or Path(args.source).with_suffix(".trail").name)
-    trail = import_jsonl(args.source, target)
+    chunk = max(int(args.chunk_mb * 2**20), 1 << 16)
+    summary = stream_jsonl(args.source, target, chunk)
+    if summary is None:
+        trail = import_jsonl(args.source, target)
+        summary = ImportSummary(trail.count, trail.header, trail.end, trail.notice)
     report = {
         "source": args.source,
         "trail": str(target),
-        "nodes": trail.count,
-        "visit_order": trail.header.solver.visit_order,
-        "status": None if trail.end is None else trail.end.status,
+        "nodes": summary.count,
+        "visit_order": summary.header.solver.visit_order,
+        "status": None if summary.end is None else summary.end.status,
         "trail_bytes": target.stat().st_size,
-        "notice": trail.notice,
+        "notice": summary.notice,
     }
     if args.json:
         emit_json(report)
@@ -67,6 +80,6 @@ def run(args: argparse.Namespace) -> int:
                 f"({report['trail_bytes']:,} bytes)"
             )
         )
-        if trail.notice:
-            out.print(Text(f"note: {trail.notice}", style="yellow"))
+        if summary.notice:
+            out.print(Text(f"note: {summary.notice}", style="yellow"))
     return 0

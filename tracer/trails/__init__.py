@@ -1,15 +1,31 @@
-from tracer.trails.jsonl import JsonlFollower, import_jsonl
+from tracer.trails.blocks import BlockIndex, BlockScanner, scan_blocks
+from tracer.trails.jsonl import (
+    STREAM_CHUNK_BYTES,
+    ImportSummary,
+    JsonlFollower,
+    import_jsonl,
+    stream_jsonl,
+)
+from tracer.trails.lazy import BlockFile, open_blocks
 from tracer.trails.opening import Follower, follow_trail, open_trail
 from tracer.trails.reader import CorruptTrailError, TrailFollower
 from tracer.trails.writer import TrailWriter
 
 __all__ = [
+    "STREAM_CHUNK_BYTES",
+    "BlockFile",
+    "BlockIndex",
+    "BlockScanner",
     "CorruptTrailError",
     "Follower",
+    "ImportSummary",
     "JsonlFollower",
     "TrailFollower",
     "TrailWriter",
     "follow_trail",
     "import_jsonl",
+    "open_blocks",
     "open_trail",
+    "scan_blocks",
+    "stream_jsonl",
 ]

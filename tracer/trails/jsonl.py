@@ -2,11 +2,12 @@
 
 A foreign solver writes one JSON object a line, in the order it visited its nodes, and names
 each node's parent by id (or gives the node's whole path). One pass checks every line on its
-own and appends plain numbers to typed arrays; everything that relates lines to each other
-(ids to parents, paths to nodes, depths, the renumbering to depth-first pre-order, the visit
-column) is then worked out with numpy one depth level at a time, so no Python object per node
-outlives its line. The file is untrusted: every size is bounded, nothing in it is evaluated,
-and every problem is an `InputError` naming the line and the field.
+own and writes plain numbers into typed arrays (`_Reading` tells its three lanes apart);
+everything that relates lines to each other (ids to parents, paths to nodes, depths, the
+renumbering to depth-first pre-order, the visit column) is then worked out with numpy one
+depth level at a time, so no Python object per node outlives its line. The file is
+untrusted: every size is bounded, nothing in it is evaluated, and every problem is an
+`InputError` naming the line and the field.
 
 The format is specified in `tracer/TRAIL_FORMAT.md`.
 """
@@ -16,6 +17,7 @@ from __future__ import annotations
 import gc
 import json
 import math
+import os
 from array import array
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
@@ -62,6 +64,7 @@ from tracer.base import (
     TREE,
     VISIT,
     BestUpdate,
+    Column,
     EndInfo,
     FieldError,
     FileKind,
@@ -74,6 +77,7 @@ from tracer.base import (
     TrailHeader,
     absent_value,
     best_tour,
+    bound_name,
     city_value,
     column_layout,
     decision_code,
@@ -87,6 +91,20 @@ from tracer.base import (
     text_value,
     tree_shape,
 )
+from tracer.trails._jsonl_scan import (
+    BOUND_ROW,
+    DONE,
+    FULL,
+    LENGTH_ROW,
+    LINK_IN_ROW,
+    LINK_OUT_ROW,
+    OTHER_KIND,
+    PARTIAL_ROW,
+    TREE_ROW,
+    scan_nodes,
+    skip_lines,
+)
+from tracer.trails._jsonl_stream import MAX_WALK_CITIES, WALKED, WalkState, walk
 from tracer.trails._jsonl_typed import (
     BestLine,
     EndLine,
@@ -107,6 +125,25 @@ _BLOCK_ROWS = 1 << 16
 #: Lines decoded and checked together on the typed path, and bytes read at a time.
 _BATCH_LINES = 1 << 14
 _CHUNK_BYTES = 1 << 22
+#: Lines handed to the typed path when the compiled lane meets a node line it does not read.
+_SLOW_LINES = 1 << 12
+#: Fewest bytes of a node line the compiled lane reads, with its newline (the six keys it
+#: needs, one-digit values): so a chunk of n bytes holds at most n // this + 1 of them.
+_SHORTEST_NODE = len('{"kind":"node","id":0,"parent":0,"city":0,"partial":0,"decision":"skip"}\n')
+#: The length columns, in the order of `_Columns.lengths`' rows (the compiled lane's).
+_LENGTH_KEYS: tuple[str, ...] = tuple(
+    key
+    for _, key in sorted(
+        {
+            PARTIAL_ROW: PARTIAL,
+            TREE_ROW: TREE,
+            BOUND_ROW: BOUND,
+            LENGTH_ROW: "length",
+            LINK_IN_ROW: LINK_IN,
+            LINK_OUT_ROW: LINK_OUT,
+        }.items()
+    )
+)
 _NO_CITY = -1  # an absent link city while parsing
 _MISSING = object()  # a key the line does not have
 
@@ -119,37 +156,101 @@ _DECODER = json.JSONDecoder(parse_constant=_reject_constant)
 
 
 class _Columns:
-    """The per-node values of the file, in visit order, as growing typed arrays."""
+    """The per-node values of the file, in visit order, in arrays grown by doubling: every
+    path (field by field, typed batches, the compiled lane) writes its rows in place."""
 
-    def __init__(self) -> None:
-        self.line = array("q")
-        self.ident = array("q")
-        self.parent_id = array("q")  # 0 where the node gives a path (or is the root)
-        self.city = array("i")
-        self.decision = array("B")
-        self.lengths: dict[str, array[float]] = {
-            key: array("d") for key in (PARTIAL, TREE, LINK_IN, LINK_OUT, BOUND, "length")
-        }
-        self.link_city: dict[str, array[int]] = {LINK_IN: array("i"), LINK_OUT: array("i")}
+    def __init__(self, rows: int = 1 << 12) -> None:
+        self.base = 0  # rows handed on already (a streamed import); visits count them too
+        self.count = 0
+        self.ident = np.empty(rows, dtype=np.int64)
+        self.parent_id = np.empty(rows, dtype=np.int64)  # 0 where a path places the node
+        self.city = np.empty(rows, dtype=np.int32)
+        self.decision = np.empty(rows, dtype=np.uint8)
+        self.lengths = np.empty((len(_LENGTH_KEYS), rows), dtype=np.float64)  # NaN: absent
+        self.link_city = np.empty((2, rows), dtype=np.int32)  # link_in, link_out; -1: absent
+        self.line = np.empty(rows, dtype=np.int64)
         # Nodes given by path: their visit positions, and where each path starts in `flat`.
         self.path_node = array("q")
         self.path_start = array("q")
         self.flat = array("H")
 
     def __len__(self) -> int:
-        return len(self.ident)
+        """Node lines read so far: the visit position of the next one."""
+        return self.base + self.count
 
-    def append_batch(self, batch: NodeBatch, lines: list[int]) -> None:
+    def drain(self) -> None:
+        """Forget the rows held (after a streamed import has handed them on), keeping room."""
+        self.base += self.count
+        self.count = 0
+
+    def reserve(self, rows: int) -> None:
+        """Make room for `rows` more rows (room not yet written costs no memory)."""
+        need = self.count + rows
+        size = self.ident.shape[0]
+        if need <= size:
+            return
+        size = max(need, 2 * size)
+        for name in ("ident", "parent_id", "city", "decision", "line", "lengths", "link_city"):
+            old = getattr(self, name)
+            new = np.empty((*old.shape[:-1], size), dtype=old.dtype)
+            new[..., : self.count] = old[..., : self.count]
+            setattr(self, name, new)
+
+    def arrays(self) -> tuple[NDArray[Any], ...]:
+        """The arrays, in the order `scan_nodes` fills them."""
+        return (
+            self.ident,
+            self.parent_id,
+            self.city,
+            self.decision,
+            self.lengths,
+            self.link_city,
+            self.line,
+        )
+
+    def append_one(
+        self,
+        line: int,
+        ident: int,
+        parent_id: int,
+        city: int,
+        decision: int,
+        lengths: tuple[float, ...],
+        link_city: tuple[int, int],
+    ) -> None:
+        """Append one node line checked field by field (`lengths` in `_LENGTH_KEYS` order)."""
+        self.reserve(1)
+        i = self.count
+        self.line[i], self.ident[i], self.parent_id[i] = line, ident, parent_id
+        self.city[i], self.decision[i] = city, decision
+        self.lengths[:, i] = lengths
+        self.link_city[:, i] = link_city
+        self.count += 1
+
+    def append_batch(self, batch: NodeBatch, lines: Sequence[int]) -> None:
         """Append node lines already checked by the typed path (given by parent id)."""
-        self.line.extend(lines)
-        self.ident.extend(batch.ident)
-        self.parent_id.extend(batch.parent_id)
-        self.city.extend(batch.city)
-        self.decision.extend(batch.decision)
-        for key, values in batch.lengths.items():
-            self.lengths[key].frombytes(values.tobytes())
-        for key, cities in batch.link_city.items():
-            self.link_city[key].frombytes(cities.tobytes())
+        k = len(lines)
+        self.reserve(k)
+        rows = slice(self.count, self.count + k)
+        self.line[rows] = lines
+        self.ident[rows] = batch.ident
+        self.parent_id[rows] = batch.parent_id
+        self.city[rows] = batch.city
+        self.decision[rows] = batch.decision
+        for i, key in enumerate(_LENGTH_KEYS):
+            self.lengths[i, rows] = batch.lengths[key]
+        self.link_city[0, rows] = batch.link_city[LINK_IN]
+        self.link_city[1, rows] = batch.link_city[LINK_OUT]
+        self.count += k
+
+    def view(self, name: str) -> NDArray[Any]:
+        """A column of the rows so far (a view): a field, a length key or a link's city."""
+        if name in _LENGTH_KEYS:
+            return self.lengths[_LENGTH_KEYS.index(name), : self.count]
+        if name in (LINK_IN_CITY, LINK_OUT_CITY):
+            return self.link_city[0 if name == LINK_IN_CITY else 1, : self.count]
+        array_: NDArray[Any] = getattr(self, name)
+        return array_[: self.count]
 
 
 @dataclass
@@ -308,6 +409,7 @@ class _Parser:
         bound = raw.get("bound")
         if not isinstance(bound, str) or not 1 <= len(bound) <= MAX_WORD:
             raise self.fail(line, "solver.bound", f"must be a name of 1..{MAX_WORD} characters")
+        bound = self.checked(line, "solver.bound", bound_name, bound)
         cutoff = raw.get("cutoff", 0)
         if not is_int(cutoff) or cutoff < 0:
             raise self.fail(line, "solver.cutoff", "must be a whole number >= 0")
@@ -351,25 +453,23 @@ class _Parser:
             parent_id, city = self._parent_and_city(obj, line, n, visit)
         decision = self._present(obj, DECISION, line)
         code = self.checked(line, DECISION, decision_code, decision, codes=False)
-        lengths = nodes.lengths
-        lengths[PARTIAL].append(self._length(obj, PARTIAL, line, required=True))
-        lengths[TREE].append(self._length(obj, TREE, line))
-        lengths[BOUND].append(self._length(obj, BOUND, line))
-        lengths["length"].append(self._length(obj, "length", line))
+        given = {
+            PARTIAL: self._length(obj, PARTIAL, line, required=True),
+            TREE: self._length(obj, TREE, line),
+            BOUND: self._length(obj, BOUND, line),
+            "length": self._length(obj, "length", line),
+        }
+        cities = []
         for key in (LINK_IN, LINK_OUT):
             link = obj.get(key)
-            if link is None:
-                nodes.link_city[key].append(_NO_CITY)
-                lengths[key].append(math.nan)
-                continue
-            link_city, link_length = self.checked(line, key, link_value, link, n)
-            nodes.link_city[key].append(link_city)
-            lengths[key].append(link_length)
-        nodes.line.append(line)
-        nodes.ident.append(ident)
-        nodes.parent_id.append(parent_id)
-        nodes.city.append(city)
-        nodes.decision.append(code)
+            link_city, given[key] = (
+                (_NO_CITY, math.nan)
+                if link is None
+                else self.checked(line, key, link_value, link, n)
+            )
+            cities.append(link_city)
+        lengths = tuple(given[key] for key in _LENGTH_KEYS)
+        nodes.append_one(line, ident, parent_id, city, code, lengths, (cities[0], cities[1]))
 
     def _path(self, obj: dict[str, Any], line: int, n: int, visit: int) -> int:
         """Check a node given by its path; keep the path and return its last city."""
@@ -448,10 +548,12 @@ class _Parser:
 
 
 class _Reading:
-    """One pass over the lines: node lines in typed batches, everything else line by line.
+    """One pass over the lines, in three lanes: plain node lines straight from the bytes by
+    the compiled lane (`_jsonl_scan`), any line it leaves in msgspec-typed batches, and a
+    batch the typed path is unsure of line by line, field by field (which names the problem).
 
-    The header line is read on its own (it may be large); the rest is read in big chunks
-    split into lines by `bytes.split`, each line bounded by `MAX_LINE_BYTES`.
+    The header line is read on its own (it may be large); the rest is read in big chunks of
+    whole lines, each line bounded by `MAX_LINE_BYTES`.
     """
 
     def __init__(self, path: Path) -> None:
@@ -459,8 +561,17 @@ class _Reading:
         self.parser = _Parser(str(path))
         self.notice: str | None = None
 
-    def run(self, handle: BinaryIO) -> None:
-        """Read every line of `handle` (stops quietly inside an unfinished last line)."""
+    def run(
+        self,
+        handle: BinaryIO,
+        chunk_bytes: int = _CHUNK_BYTES,
+        drain: Callable[[_Columns], None] | None = None,
+    ) -> None:
+        """Read every line of `handle` (stops quietly inside an unfinished last line).
+
+        `drain`, if given, is handed the node rows read after each chunk of `chunk_bytes`,
+        which are then forgotten: memory stays bounded by the chunk (a streamed import).
+        """
         number = 0
         while self.parser.instance is None:
             raw = handle.readline(MAX_FRAME_BYTES + 1)
@@ -475,30 +586,94 @@ class _Reading:
                 )
             if not self.slow(number, raw, raw.endswith(b"\n")):
                 return
+        try:  # how much is left, to make room for its nodes (a pipe does not say)
+            size, done = os.fstat(handle.fileno()).st_size, handle.tell()
+        except (OSError, ValueError, AttributeError):
+            size = done = 0
         tail = b""
-        while chunk := handle.read(_CHUNK_BYTES):
-            lines = (tail + chunk).split(b"\n")
-            tail = lines.pop()
-            self.feed(number + 1, lines)
-            number += len(lines)
+        while chunk := handle.read(chunk_bytes):
+            nodes, before = self.parser.nodes, done
+            done += len(chunk)
+            if nodes.count and size > before:  # room for the rest at the density so far
+                rest = min(nodes.count * (size - before) // before, size // _SHORTEST_NODE)
+                nodes.reserve(rest + rest // 20 + 1)
+            data = tail + chunk
+            cut = data.rfind(b"\n")
+            if cut >= 0:
+                body, tail = data[:cut], data[cut + 1 :]
+                number = self.feed(number + 1, body) - 1
+                if drain is not None:
+                    drain(self.parser.nodes)
+                    self.parser.nodes.drain()
+            else:
+                tail = data
             if len(tail) > MAX_LINE_BYTES:
                 raise InputError(
                     self.path, f"line is longer than {MAX_LINE_BYTES} bytes", line=number + 1
                 )
         if tail:
             self.slow(number + 1, tail, False)
+        if drain is not None:
+            drain(self.parser.nodes)
+            self.parser.nodes.drain()
 
-    def feed(self, first: int, lines: list[bytes]) -> None:
-        """Take whole lines (without their newlines) numbered from `first`."""
-        done = 0
-        while self.parser.instance is None and done < len(lines):  # the header, on its own
-            if len(lines[done]) > MAX_FRAME_BYTES:
+    def feed(self, first: int, body: bytes) -> int:
+        """Take whole lines (`body` holds them joined by newlines) numbered from `first`;
+        returns the number of the line after them."""
+        pos = 0
+        while self.parser.instance is None:  # the header, on its own
+            cut = body.find(b"\n", pos)
+            line = body[pos:] if cut < 0 else body[pos:cut]
+            if len(line) > MAX_FRAME_BYTES:
                 message = f"the header line is longer than {MAX_FRAME_BYTES} bytes"
-                raise InputError(self.path, message, line=first + done)
-            self.slow(first + done, lines[done], True)
-            done += 1
-        if done:
-            first, lines = first + done, lines[done:]
+                raise InputError(self.path, message, line=first)
+            self.slow(first, line, True)
+            if cut < 0:
+                return first + 1
+            first, pos = first + 1, cut + 1
+        if self.parser.status is None:
+            first, pos = self._scan(first, body, pos)
+        if pos == len(body):
+            return first + 1 if body.endswith(b"\n") else first  # a last, empty line
+        rest = body[pos:].split(b"\n")
+        self._lines(first, rest)
+        return first + len(rest)
+
+    def _scan(self, first: int, body: bytes, pos: int) -> tuple[int, int]:
+        """Plain node lines by the compiled lane, the rest handed to `_lines`, until every
+        line is read or the end line has been; returns the next line's number and offset."""
+        assert self.parser.instance is not None
+        nodes = self.parser.nodes
+        buf = np.frombuffer(body, dtype=np.uint8)
+        size = len(body)
+        while pos < size and self.parser.status is None:
+            pos, nodes.count, passed, why = scan_nodes(
+                buf,
+                pos,
+                self.parser.instance.n,
+                MAX_LINE_BYTES,
+                MAX_TRAIL_NODES - nodes.base,
+                first,
+                nodes.base,
+                nodes.count,
+                *nodes.arrays(),
+            )
+            first += passed
+            if why == DONE:
+                break
+            if why == FULL and len(nodes) < MAX_TRAIL_NODES:  # out of room: grow, go on
+                nodes.reserve((size - pos) // _SHORTEST_NODE + 1)
+                continue
+            after = skip_lines(buf, pos, 1 if why == OTHER_KIND else _SLOW_LINES)
+            lines = body[pos:after].split(b"\n")
+            if after > pos and body[after - 1] == 10:
+                lines.pop()  # the newline closing the last of them
+            self._lines(first, lines)
+            first, pos = first + len(lines), after
+        return first, pos
+
+    def _lines(self, first: int, lines: list[bytes]) -> None:
+        """Take whole lines (without their newlines) numbered from `first`, each bounded."""
         if max(map(len, lines), default=0) > MAX_LINE_BYTES:
             at = next(i for i, line in enumerate(lines) if len(line) > MAX_LINE_BYTES)
             self.take(first, lines[:at])
@@ -639,19 +814,23 @@ class _Tree:
         self.n = parsed.instance.n
         nodes = parsed.nodes
         self.count = len(nodes)
-        self.line = np.frombuffer(nodes.line, dtype=np.int64)
-        self.ident = np.frombuffer(nodes.ident, dtype=np.int64)
-        self.city = np.frombuffer(nodes.city, dtype=np.intc).astype(np.int64)
+        self.line = nodes.view("line")
+        self.ident = nodes.view("ident")
+        self.city = nodes.view("city").astype(np.int64)
         self.by_path = np.zeros(self.count, dtype=np.bool_)
         self.path_node = np.frombuffer(nodes.path_node, dtype=np.int64)
         self.path_start = np.frombuffer(nodes.path_start, dtype=np.int64)
         self.flat = np.frombuffer(nodes.flat, dtype=np.uint16)
         self.by_path[self.path_node] = True
-        self.id_order = np.argsort(self.ident, kind="stable")
-        self.sorted_ids = self.ident[self.id_order]
+        if self.count < 2 or bool((self.ident[1:] > self.ident[:-1]).all()):  # often so
+            self.id_order = np.arange(self.count)
+            self.sorted_ids = self.ident
+        else:
+            self.id_order = np.argsort(self.ident, kind="stable")
+            self.sorted_ids = self.ident[self.id_order]
         self._check_ids()
         self.parent = np.full(self.count, -1, dtype=np.int64)
-        self._link_parent_ids(np.frombuffer(nodes.parent_id, dtype=np.int64))
+        self._link_parent_ids(nodes.view("parent_id"))
         self.depth = self._depths()
         self._by_depth, self._level_start = self._levels()
         self.top = len(self._level_start) - 2  # the deepest level
@@ -813,15 +992,18 @@ class _Tree:
         return pre
 
 
-def _lengths(parsed: _Parsed, tree: _Tree) -> dict[str, NDArray[np.float64]]:
-    """Length values in visit order (NaN where absent), complete paths' closing edges filled."""
-    raw = {k: np.frombuffer(v, dtype=np.float64).copy() for k, v in parsed.nodes.lengths.items()}
-    complete = tree.depth == tree.n - 1
-    length = raw.pop("length")
+def _closed_lengths(
+    nodes: _Columns, depth: NDArray[np.int64], city: NDArray[np.int64], instance: Instance
+) -> tuple[dict[str, NDArray[np.float64]], tuple[int, str, str] | None]:
+    """Length values of the rows held (visit order, NaN where absent), complete paths'
+    closing edges filled; and the first misplaced length as (row, field, message), or None."""
+    raw = {k: nodes.view(k) for k in _LENGTH_KEYS}  # views: copy before changing
+    complete = depth == instance.n - 1
+    length = raw.pop("length").copy()
+    raw[LINK_OUT] = raw[LINK_OUT].copy()  # closing edges are written into it below
     missing = complete & np.isnan(length)
     if missing.any():  # liberal: the closed tour's length is the path plus its closing edge
-        matrix = parsed.instance.matrix
-        length[missing] = raw[PARTIAL][missing] + matrix[tree.city[missing], 0]
+        length[missing] = raw[PARTIAL][missing] + instance.matrix[city[missing], 0]
     for bad, key, message in (
         (~complete & ~np.isnan(length), "length", "is only for a path holding every city"),
         (complete & ~np.isnan(raw[TREE]), TREE, "must be null at a path holding every city"),
@@ -833,75 +1015,129 @@ def _lengths(parsed: _Parsed, tree: _Tree) -> dict[str, NDArray[np.float64]]:
         ),
     ):
         if bad.any():
-            raise tree.fail(int(np.argmax(bad)), key, message)
+            return raw, (int(np.argmax(bad)), key, message)
     raw[LINK_OUT][complete] = length[complete] - raw[PARTIAL][complete]
-    return raw
+    return raw, None
+
+
+@dataclass
+class _Extent:
+    """What the column layout depends on, gathered over every length recorded."""
+
+    bound: bool = False  # a node gives the solver's own bound
+    integral: bool = True  # every length is a whole number
+    largest: float = 0.0  # the largest magnitude
+
+    def add(self, lengths: dict[str, NDArray[np.float64]]) -> None:
+        """Take in the lengths of some nodes (NaN where absent)."""
+        self.bound = self.bound or not np.isnan(lengths[BOUND]).all()
+        for values in lengths.values():
+            self.add_values(values[~np.isnan(values)])
+
+    def add_values(self, values: NDArray[np.float64]) -> None:
+        """Take in some recorded lengths (none absent)."""
+        if values.size:
+            self.integral = self.integral and bool((values == np.floor(values)).all())
+            self.largest = max(self.largest, float(np.abs(values).max()))
+
+    def layout(
+        self, instance: Instance, in_preorder: bool, best: Sequence[_Best]
+    ) -> tuple[Column, ...]:
+        """The trail's columns: which there are, and the narrowest dtypes that hold them."""
+        self.add_values(np.array([b.length for b in best], dtype=np.float64))
+        names: tuple[str, ...] = FULL_COLUMNS
+        if self.bound:
+            names += (BOUND,)
+        if not in_preorder:
+            names += (VISIT,)
+        names += SOURCE_COLUMNS  # findings name the node by the solver's id and its line
+        integral = instance.integral and self.integral
+        return column_layout(names, instance.n, integral, self.largest + 1.0)
 
 
 def _store(
-    values: NDArray[Any], absent: NDArray[np.bool_], dtype: np.dtype[Any], pre: NDArray[np.int64]
+    values: NDArray[Any],
+    absent: NDArray[np.bool_] | None,
+    dtype: np.dtype[Any],
+    pre: NDArray[np.int64] | None,
 ) -> NDArray[Any]:
-    """`values` (visit order) as a column of `dtype` in pre-order, absent entries as sentinel."""
-    column = np.full(len(values), absent_value(dtype), dtype=dtype)
-    column[pre[~absent]] = values[~absent].astype(dtype)
+    """`values` (visit order) as a column of `dtype` in pre-order (`pre` None: visit order
+    is pre-order already), `absent` entries (None: none are) as the dtype's sentinel."""
+    if absent is not None and absent.any():
+        values = np.where(absent, absent_value(dtype), values)
+    if pre is None:
+        return values.astype(dtype)
+    column = np.empty(len(values), dtype=dtype)
+    column[pre] = values
     return column
+
+
+def _trail_columns(
+    nodes: _Columns,
+    depth: NDArray[np.int64],
+    city: NDArray[np.int64],
+    lengths: dict[str, NDArray[np.float64]],
+    layout: tuple[Column, ...],
+    pre: NDArray[np.int64] | None,
+    n: int,
+) -> dict[str, NDArray[Any]]:
+    """The trail's columns for the rows held (`pre` None: they are in pre-order already)."""
+    link_city = {
+        LINK_IN: nodes.view(LINK_IN_CITY).astype(np.int64),
+        LINK_OUT: nodes.view(LINK_OUT_CITY).astype(np.int64),
+    }
+    link_city[LINK_OUT][depth == n - 1] = 0  # a complete path's closing edge goes to city 0
+    source: dict[str, tuple[NDArray[Any], NDArray[np.bool_] | None]] = {
+        CITY: (city, None),
+        DEPTH: (depth, None),
+        DECISION: (nodes.view("decision"), None),
+        LINK_IN_CITY: (link_city[LINK_IN], link_city[LINK_IN] == _NO_CITY),
+        LINK_OUT_CITY: (link_city[LINK_OUT], link_city[LINK_OUT] == _NO_CITY),
+        VISIT: (np.arange(nodes.base, len(nodes)), None),
+        SOURCE_ID: (nodes.view("ident"), None),
+        SOURCE_LINE: (nodes.view("line"), None),
+    }
+    for key, values in lengths.items():
+        source[key] = (values, np.isnan(values))
+    return {c.name: _store(*source[c.name], c.dtype, pre) for c in layout}
+
+
+def _end_info(
+    status: str | None, count: int, counts: NDArray[np.int64], best: list[BestUpdate]
+) -> EndInfo | None:
+    """The end frame of an imported trace (None without an end line: a crashed run)."""
+    if status is None:
+        return None
+    last = best[-1] if best else None
+    return EndInfo(
+        status=status,
+        nodes=count,
+        recorded=count,
+        decisions={name: int(counts[i]) for i, name in enumerate(DECISION_NAMES)},
+        seconds=0.0,
+        length=None if last is None else last.length,
+        tour=None if last is None else list(last.tour),
+    )
 
 
 def _build(parsed: _Parsed) -> Trail:
     tree = _Tree(parsed)
-    lengths = _lengths(parsed, tree)
-    link_city = {
-        k: np.frombuffer(v, dtype=np.intc).astype(np.int64)
-        for k, v in parsed.nodes.link_city.items()
-    }
-    link_city[LINK_OUT][tree.depth == tree.n - 1] = 0
-    names: tuple[str, ...] = FULL_COLUMNS
-    if not np.isnan(lengths[BOUND]).all():
-        names += (BOUND,)
+    lengths, misplaced = _closed_lengths(parsed.nodes, tree.depth, tree.city, parsed.instance)
+    if misplaced is not None:
+        raise tree.fail(*misplaced)
     in_preorder = bool(np.array_equal(tree.pre, np.arange(tree.count)))
-    if not in_preorder:
-        names += (VISIT,)
-    names += SOURCE_COLUMNS  # findings name the node by the solver's id and its line
-    recorded = [v[~np.isnan(v)] for v in lengths.values()] + [
-        np.array([b.length for b in parsed.best])
-    ]
-    integral = parsed.instance.integral and all(bool((v == np.floor(v)).all()) for v in recorded)
-    longest = max((float(np.abs(v).max()) for v in recorded if v.size), default=0.0) + 1.0
-    layout = column_layout(names, tree.n, integral, longest)
-    source: dict[str, tuple[NDArray[Any], NDArray[np.bool_]]] = {
-        CITY: (tree.city, np.zeros(tree.count, dtype=np.bool_)),
-        DEPTH: (tree.depth, np.zeros(tree.count, dtype=np.bool_)),
-        DECISION: (
-            np.frombuffer(parsed.nodes.decision, dtype=np.uint8),
-            np.zeros(tree.count, bool),
-        ),
-        LINK_IN_CITY: (link_city[LINK_IN], link_city[LINK_IN] == _NO_CITY),
-        LINK_OUT_CITY: (link_city[LINK_OUT], link_city[LINK_OUT] == _NO_CITY),
-        VISIT: (np.arange(tree.count), np.zeros(tree.count, dtype=np.bool_)),
-        SOURCE_ID: (tree.ident, np.zeros(tree.count, dtype=np.bool_)),
-        SOURCE_LINE: (tree.line, np.zeros(tree.count, dtype=np.bool_)),
-    }
-    for key, values in lengths.items():
-        source[key] = (values, np.isnan(values))
-    columns = {c.name: _store(*source[c.name], c.dtype, tree.pre) for c in layout}
+    extent = _Extent()
+    extent.add(lengths)
+    layout = extent.layout(parsed.instance, in_preorder, parsed.best)
+    pre = None if in_preorder else tree.pre
+    columns = _trail_columns(parsed.nodes, tree.depth, tree.city, lengths, layout, pre, tree.n)
     best = _updates(parsed, tree)
     solver = parsed.solver
     if not in_preorder:
         solver = replace(solver, visit_order=True)
     header = TrailHeader(instance=parsed.instance, solver=solver, columns=layout)
-    end = None
-    if parsed.status is not None:
-        counts = np.bincount(columns[DECISION], minlength=len(DECISION_NAMES))
-        last = best[-1] if best else None
-        end = EndInfo(
-            status=parsed.status,
-            nodes=tree.count,
-            recorded=tree.count,
-            decisions={name: int(counts[i]) for i, name in enumerate(DECISION_NAMES)},
-            seconds=0.0,
-            length=None if last is None else last.length,
-            tour=None if last is None else list(last.tour),
-        )
+    counts = np.bincount(columns[DECISION], minlength=len(DECISION_NAMES))
+    end = _end_info(parsed.status, tree.count, counts, best)
     return Trail(parsed.path, header, columns, best, end, parsed.notice)
 
 
@@ -958,16 +1194,17 @@ class JsonlFollower:
         data = self._handle.read()
         before = self._trail
         if data:
-            lines = (self._tail + data).split(b"\n")
-            self._tail = lines.pop()
-            with _collector_paused():
-                self._reading.feed(self._number + 1, lines)
-            self._number += len(lines)
+            data = self._tail + data
+            cut = data.rfind(b"\n")
+            body, self._tail = (b"", data) if cut < 0 else (data[:cut], data[cut + 1 :])
+            if cut >= 0:
+                with _collector_paused():
+                    self._number = self._reading.feed(self._number + 1, body) - 1
             limit = MAX_FRAME_BYTES if self._reading.parser.instance is None else MAX_LINE_BYTES
             if len(self._tail) > limit:
                 message = f"line is longer than {limit} bytes"
                 raise InputError(self.path, message, line=self._number + 1)
-            if lines and self._reading.parser.instance is not None:
+            if cut >= 0 and self._reading.parser.instance is not None:
                 self._trail = _build(self._reading.parsed())
         trail = self._trail
         if trail is None or trail is before:
@@ -1042,3 +1279,187 @@ def import_jsonl(src: str | Path, dst: str | Path) -> Trail:
         if trail.end is not None:
             writer.close(trail.end)
     return trail
+
+
+# -- a streamed import -----------------------------------------------------------------------
+
+#: Bytes of lines read at a time by a streamed import: its memory is a small multiple of
+#: this (and of `_BLOCK_ROWS` rows), whatever the size of the file.
+STREAM_CHUNK_BYTES = _CHUNK_BYTES
+
+
+@dataclass(frozen=True)
+class ImportSummary:
+    """What a streamed import wrote, for the command's report (the trail is not in memory)."""
+
+    count: int
+    header: TrailHeader
+    end: EndInfo | None
+    notice: str | None
+
+
+class _WholeFileError(Exception):
+    """The trace needs the whole-file import: not in pre-order, or something to report."""
+
+
+class _StreamCheck:
+    """The first pass of a streamed import: each chunk's nodes walked and checked as the
+    whole-file path would, and what the column layout and the end frame need gathered."""
+
+    def __init__(self, reading: _Reading) -> None:
+        self.reading = reading
+        self.state: WalkState | None = None
+        self.extent = _Extent()
+        self.counts = np.zeros(len(DECISION_NAMES), dtype=np.int64)
+        self.visits: dict[int, int] = {}  # best line (index) -> visit of the node it names
+        self.resolved = 0  # best lines looked at
+        self.recent = (0, np.empty(0, dtype=np.int64))  # the last chunk: first visit, ids
+
+    def __call__(self, nodes: _Columns) -> None:
+        instance = self.reading.parser.instance
+        if instance is None:
+            return
+        ident = nodes.view("ident")
+        if nodes.count:
+            if len(nodes.path_node) or instance.n > MAX_WALK_CITIES:
+                raise _WholeFileError
+            if self.state is None:
+                self.state = WalkState(instance.n)
+            depth, why = walk(self.state, ident, nodes.view("parent_id"), nodes.view("city"))
+            if why != WALKED:
+                raise _WholeFileError
+            city = nodes.view("city").astype(np.int64)
+            lengths, misplaced = _closed_lengths(nodes, depth, city, instance)
+            if misplaced is not None:
+                raise _WholeFileError
+            self.extent.add(lengths)
+            self.counts += np.bincount(nodes.view("decision"), minlength=len(DECISION_NAMES))
+        self._resolve((self.recent, (nodes.base, ident)))
+        if nodes.count:
+            self.recent = (nodes.base, ident.copy())
+
+    def _resolve(self, chunks: tuple[tuple[int, NDArray[np.int64]], ...]) -> None:
+        """Find the nodes that the new best lines name, among the ids of this chunk and the
+        one before (ids increase); a node further back is left to the whole-file path."""
+        best = self.reading.parser.best
+        for i in range(self.resolved, len(best)):
+            b = best[i]
+            if b.ident is None:
+                continue
+            for first, ids in chunks:
+                k = int(np.searchsorted(ids, b.ident))
+                if k < len(ids) and ids[k] == b.ident and first + k < b.seen:
+                    self.visits[i] = first + k
+            if i not in self.visits:
+                raise _WholeFileError
+        self.resolved = len(best)
+
+    def updates(self) -> list[BestUpdate]:
+        """The incumbent updates, as the whole-file path makes them (ids in pre-order)."""
+        out = []
+        for i, b in enumerate(self.reading.parser.best):
+            if b.ident is None:
+                out.append(BestUpdate(at=b.seen, node=-1, length=b.length, tour=b.tour))
+            else:
+                v = self.visits[i]
+                out.append(BestUpdate(at=v + 1, node=v, length=b.length, tour=b.tour))
+        return sorted(out, key=lambda u: u.at)
+
+
+class _StreamWrite:
+    """The second pass of a streamed import: each chunk's nodes into the trail's columns,
+    written in blocks of `_BLOCK_ROWS` rows, the same blocks the whole-file import writes."""
+
+    def __init__(self, reading: _Reading, writer: TrailWriter, header: TrailHeader) -> None:
+        self.reading, self.writer, self.header = reading, writer, header
+        self.state = WalkState(header.instance.n)
+        self.pending: list[dict[str, NDArray[Any]]] = []
+        self.held = 0
+
+    def __call__(self, nodes: _Columns) -> None:
+        if not nodes.count:
+            return
+        instance = self.header.instance
+        depth, why = walk(
+            self.state, nodes.view("ident"), nodes.view("parent_id"), nodes.view("city")
+        )
+        city = nodes.view("city").astype(np.int64)
+        lengths, misplaced = _closed_lengths(nodes, depth, city, instance)
+        if why != WALKED or misplaced is not None:  # the first pass read the same lines
+            raise _WholeFileError
+        columns = _trail_columns(nodes, depth, city, lengths, self.header.columns, None, instance.n)
+        self.pending.append(columns)
+        self.held += nodes.count
+        if self.held >= _BLOCK_ROWS:
+            self.flush(whole=True)
+
+    def flush(self, whole: bool = False) -> None:
+        """Write the rows held in blocks (`whole`: only whole blocks, the rest kept)."""
+        if not self.pending:
+            return
+        joined = {k: np.concatenate([p[k] for p in self.pending]) for k in self.pending[0]}
+        end = self.held - self.held % _BLOCK_ROWS if whole else self.held
+        for first in range(0, end, _BLOCK_ROWS):
+            self.writer.write_nodes(
+                {k: v[first : min(first + _BLOCK_ROWS, end)] for k, v in joined.items()}
+            )
+        rest = self.held - end
+        self.pending = [{k: v[end:] for k, v in joined.items()}] if rest else []
+        self.held = rest
+
+
+def stream_jsonl(
+    src: str | Path, dst: str | Path, chunk_bytes: int = STREAM_CHUNK_BYTES
+) -> ImportSummary | None:
+    """Import a JSON Lines trace already in depth-first pre-order, writing blocks as it reads,
+    with memory bounded by `chunk_bytes` (and a block of rows), in two passes over the file:
+    one to check it and learn its column layout, one to write.
+
+    The trail written is byte for byte the one `import_jsonl` writes. Returns None where the
+    trace needs the whole-file import instead: not a regular file (a pipe is read once), not
+    in pre-order (or ids that do not grow), paths instead of parent ids, more than
+    `MAX_WALK_CITIES` cities, a best line naming a node more than a chunk back, or a problem
+    to report (the whole-file import reports it as usual); all found by the first pass,
+    before anything is written. A file that changed between the passes also gives None,
+    after a partial trail that the caller's whole-file import then replaces.
+
+    Raises:
+        InputError: a line that is wrong in itself, as `import_jsonl` names it.
+    """
+    p = Path(src)
+    expect_kind(p, (FileKind.JSON_LINES,), "a JSON Lines trace (one JSON object a line)")
+    try:
+        before = p.stat()
+    except OSError as exc:
+        raise InputError(p, f"cannot read: {exc.strerror or exc}") from None
+    if not p.is_file():
+        return None
+    first = _Reading(p)
+    check = _StreamCheck(first)
+    try:
+        with open(p, "rb") as handle, _collector_paused():
+            first.run(handle, chunk_bytes, drain=check)
+        parsed = first.parsed()
+        best = check.updates()
+    except _WholeFileError:
+        return None
+    layout = check.extent.layout(parsed.instance, True, parsed.best)
+    header = TrailHeader(instance=parsed.instance, solver=parsed.solver, columns=layout)
+    end = _end_info(parsed.status, len(first.parser.nodes), check.counts, best)
+    second = _Reading(p)
+    try:
+        with TrailWriter(dst, header) as writer, open(p, "rb") as handle, _collector_paused():
+            write = _StreamWrite(second, writer, header)
+            second.run(handle, chunk_bytes, drain=write)
+            write.flush()
+            for update in best:
+                writer.write_best(update)
+            after = p.stat()
+            same = (after.st_size, after.st_mtime_ns) == (before.st_size, before.st_mtime_ns)
+            if not same or len(second.parser.nodes) != len(first.parser.nodes):
+                return None  # the caller imports the whole file, replacing what was written
+            if end is not None:
+                writer.close(end)
+    except _WholeFileError:
+        return None
+    return ImportSummary(len(first.parser.nodes), header, end, parsed.notice)

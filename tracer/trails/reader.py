@@ -13,6 +13,7 @@ and a notice saying where it stops.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any, BinaryIO, NamedTuple
 
@@ -67,6 +68,7 @@ from tracer.base import (
     recorded_length,
     show_value,
 )
+from tracer.base.limits import DECODED_ALLOWANCE, MAX_DECODED_RATIO
 
 _READ_SIZE = 1 << 20
 _NODE_FRAME_BATCH = 1 << 16
@@ -102,6 +104,7 @@ class _Block(NamedTuple):
     codec: str
     payload: dict[str, bytes]
     offset: int  # of the `nodes` frame, or of the first `node` frame batched into it
+    stop: int  # one past the last byte of that frame (or of the last batched `node` frame)
 
 
 class _Frames:
@@ -117,9 +120,18 @@ class _Frames:
         self._pending: dict[str, list[Any]] | None = None
         self._pending_count = 0
         self._pending_offset = 0
+        self._pending_stop = 0
         self.end_offset = -1
         #: Where the first frame not yet complete starts (the file's end when all are).
         self.resume = 0
+        #: Whether the unpacker stopped inside the frame that starts at `resume`.
+        self.partway = False
+        #: One past the last byte of the frame being taken.
+        self.here = 0
+        #: Where the header frame ends (node frames follow it).
+        self.header_end = 0
+        #: Decoded bytes the node blocks so far claim (bounded by `_claim`).
+        self.decoded = 0
 
     def fail(self, offset: int, message: str) -> CorruptTrailError:
         return CorruptTrailError(self.path, offset, message, None)
@@ -135,6 +147,7 @@ class _Frames:
                 self.header = from_wire(frame)
             except HeaderError as exc:
                 raise self.fail(offset, f"bad header: {exc}") from None
+            self.header_end = self.here
             return
         if self.end is not None:
             raise self.fail(offset, "a frame follows the end frame")
@@ -183,9 +196,26 @@ class _Frames:
                 )
         if self.total + count > MAX_TRAIL_NODES:
             raise self.fail(offset, f"more than {MAX_TRAIL_NODES} nodes")
+        self._claim(count, offset)
         columns = {c.name: payload[c.name] for c in self.header.columns}
-        self.blocks.append(_Block(count, codec, columns, offset))
+        self.blocks.append(_Block(count, codec, columns, offset, self.here))
         self.total += count
+
+    def _claim(self, count: int, offset: int) -> None:
+        """Refuse a block whose decoded columns the file's size cannot plausibly hold."""
+        assert self.header is not None
+        row = sum(c.dtype.itemsize for c in self.header.columns)
+        claimed = self.decoded + count * row
+        allowed = MAX_DECODED_RATIO * (self.here - self.header_end) + DECODED_ALLOWANCE
+        if claimed > allowed:
+            raise self.fail(
+                offset,
+                f"nodes frame claims {count} records of {row} bytes: the node columns so far "
+                f"would decode to {claimed} bytes, more than {MAX_DECODED_RATIO} times the "
+                f"{self.here - self.header_end} bytes of node frames that hold them "
+                "(a decompression bomb, or a damaged count)",
+            )
+        self.decoded = claimed
 
     def _node(self, frame: dict[str, Any], offset: int) -> None:
         """A single-record frame (hand-written writers): batched into column blocks."""
@@ -205,6 +235,7 @@ class _Frames:
         for col in self.header.columns:
             self._pending[col.name].append(values.get(col.name, absent_value(col.dtype)))
         self._pending_count += 1
+        self._pending_stop = self.here
         if self._pending_count >= _NODE_FRAME_BATCH:
             self._flush_pending()
 
@@ -214,7 +245,11 @@ class _Frames:
         payload: dict[str, bytes] = {}
         for col in self.header.columns:
             payload[col.name] = np.array(self._pending[col.name], dtype=col.dtype).tobytes()
-        self.blocks.append(_Block(self._pending_count, "none", payload, self._pending_offset))
+        self.decoded += self._pending_count * sum(c.dtype.itemsize for c in self.header.columns)
+        block = _Block(
+            self._pending_count, "none", payload, self._pending_offset, self._pending_stop
+        )
+        self.blocks.append(block)
         self.total += self._pending_count
         self._pending = None
         self._pending_count = 0
@@ -339,44 +374,56 @@ def _decode_into(
     block: _Block,
 ) -> str | None:
     """Decode one block into store[...][pos:pos+count]; returns an error message or None."""
-    count, codec, payload, _ = block
-    decompressor = zstandard.ZstdDecompressor()
     for col in header.columns:
-        size = count * col.dtype.itemsize
-        data = payload[col.name]
-        if codec == "zstd":
-            try:
-                data = decompressor.decompress(data, max_output_size=size)
-            except zstandard.ZstdError as exc:
-                return f"column {col.name} does not decompress ({exc})"
-        if len(data) != size:
-            return f"column {col.name} holds {len(data)} bytes, expected {size}"
-        store[col.name][pos : pos + count] = np.frombuffer(data, dtype=col.dtype)
+        values = _decode_column(header, col, block.codec, block.payload[col.name], block.nodes)
+        if isinstance(values, str):
+            return values
+        store[col.name][pos : pos + block.nodes] = values
+    return None
+
+
+def _decode_column(
+    header: TrailHeader, col: Column, codec: str, data: bytes, count: int
+) -> NDArray[Any] | str:
+    """One column of a block as `count` checked values (read-only), or why it cannot be."""
+    size = count * col.dtype.itemsize
+    if codec == "zstd":
+        try:
+            data = zstandard.ZstdDecompressor().decompress(data, max_output_size=size)
+        except zstandard.ZstdError as exc:
+            return f"column {col.name} does not decompress ({exc})"
+    if len(data) != size:
+        return f"column {col.name} holds {len(data)} bytes, expected {size}"
+    values = np.frombuffer(data, dtype=col.dtype)
     n = header.instance.n
-    for name in (*CITY_COLUMNS, DEPTH):
-        if name not in store:
-            continue
-        values = store[name][pos : pos + count]
+    if col.name in (*CITY_COLUMNS, DEPTH):
         bad = values >= n
-        if name in (LINK_IN_CITY, LINK_OUT_CITY):
+        if col.name in (LINK_IN_CITY, LINK_OUT_CITY):
             bad &= values != absent_value(values.dtype)
         if bad.any():
-            return f"column {name} holds {int(values[bad][0])}, outside 0..{n - 1}"
-    if (store[DECISION][pos : pos + count] >= len(DECISION_NAMES)).any():
+            return f"column {col.name} holds {int(values[bad][0])}, outside 0..{n - 1}"
+    if col.name == DECISION and (values >= len(DECISION_NAMES)).any():
         return "column decision holds an unknown code"
-    return None
+    return values
 
 
 def _consume(unpacker: msgpack.Unpacker, frames: _Frames) -> CorruptTrailError | None:
     """Hand every complete frame to `frames`; the first corrupt one is returned, not raised."""
     while True:
-        offset = frames.resume = unpacker.tell()
+        # After running out of data the unpacker keeps its place inside the frame, so the
+        # frame's start is the one noted before it.
+        if not frames.partway:
+            frames.resume = unpacker.tell()
+        offset = frames.resume
         try:
             frame = unpacker.unpack()
         except msgpack.OutOfData:
+            frames.partway = True
             return None
         except (msgpack.UnpackException, ValueError) as exc:
             return frames.fail(offset, f"not a valid frame ({exc})")
+        frames.partway = False
+        frames.here = unpacker.tell()
         try:
             frames.take(frame, offset)
         except CorruptTrailError as exc:
@@ -422,7 +469,12 @@ def read_trail(path: str | Path) -> Trail:
     if corrupt is not None:
         corrupt.partial = trail
         raise corrupt
-    disagreement = _end_disagreement(trail)
+    disagreement = _end_disagreement(
+        trail.end,
+        trail.best,
+        trail.count,
+        lambda: np.bincount(trail.columns[DECISION], minlength=len(DECISION_NAMES)),
+    )
     if disagreement is not None:
         trail.end = None
         trail.notice = (
@@ -439,21 +491,29 @@ def read_trail(path: str | Path) -> Trail:
     return trail
 
 
-def _end_disagreement(trail: Trail) -> str | None:
-    """Why the end frame cannot be this trail's summary (a damaged byte), or None if it can."""
-    end = trail.end
+def _end_disagreement(
+    end: EndInfo | None,
+    best: list[BestUpdate],
+    count: int,
+    decision_counts: Callable[[], NDArray[Any]],
+) -> str | None:
+    """Why the end frame cannot be the summary of these nodes and updates, or None if it can.
+
+    `best` is in effect order; `decision_counts()` gives the nodes per decision code (only
+    called when the end frame's counts must be compared).
+    """
     if end is None:
         return None
-    last = trail.best[-1] if trail.best else None
+    last = best[-1] if best else None
     if end.length is not None and (last is None or end.length != last.length):
         found = "none" if last is None else f"{last.length:g}"
         return f"it gives length {end.length:g}, the last incumbent update {found}"
     if end.tour is not None and (last is None or tuple(end.tour) != last.tour):
         return "its tour is not the last incumbent update's"
-    if end.recorded != trail.count:
-        return f"it counts {end.recorded} records, the trail holds {trail.count}"
-    if end.nodes == trail.count and end.decisions:
-        counts = np.bincount(trail.columns[DECISION], minlength=len(DECISION_NAMES))
+    if end.recorded != count:
+        return f"it counts {end.recorded} records, the trail holds {count}"
+    if end.nodes == count and end.decisions:
+        counts = decision_counts()
         for code, name in enumerate(DECISION_NAMES):
             if end.decisions.get(name, 0) != int(counts[code]):
                 return f"it counts {end.decisions.get(name, 0)} {name}, the trail {counts[code]}"
@@ -486,12 +546,15 @@ class TrailFollower:
         Raises:
             CorruptTrailError: a corrupt frame.
         """
-        data = self._handle.read()
-        if data:
-            self._unpacker.feed(data)
-        corrupt = _consume(self._unpacker, self._frames)
-        if corrupt is not None:
-            raise corrupt
+        while True:  # a chunk at a time: the unpacker's buffer holds one frame at most
+            data = self._handle.read(_READ_SIZE)
+            if data:
+                self._unpacker.feed(data)
+            corrupt = _consume(self._unpacker, self._frames)
+            if corrupt is not None:
+                raise corrupt
+            if len(data) < _READ_SIZE:
+                break
         if self._frames.end is not None:
             self._frames.finish()
         header = self._frames.header

@@ -3,12 +3,15 @@
 Compression and disk writes happen on a second thread so they overlap the search (the
 compiled loop releases the GIL). Frames keep their order; each is flushed to the file as
 soon as it is written, so a viewer can follow a live run and a crash loses at most the
-frames still queued. `close` always writes the `end` frame.
+frames still queued. `close` always writes the `end` frame, and in it the block index (every
+block's place and summary, see TRAIL_FORMAT.md), so a reader can open a large trail without
+scanning it.
 """
 
 from __future__ import annotations
 
 import queue
+import struct
 import threading
 from collections.abc import Mapping
 from pathlib import Path
@@ -23,7 +26,9 @@ from numpy.typing import NDArray
 from tracer.base import (
     BEST,
     CODECS,
+    DECISION,
     DECISION_NAMES,
+    DEPTH,
     END,
     NODES,
     BestUpdate,
@@ -32,6 +37,15 @@ from tracer.base import (
     TrailHeader,
     length_value,
     to_wire,
+)
+from tracer.trails.blocks import (
+    INDEX_AT_KEY,
+    INDEX_FIELDS,
+    INDEX_KEY,
+    INDEX_TAIL,
+    MAX_INDEX_BEST,
+    MAX_INDEX_BLOCKS,
+    block_summary,
 )
 
 _QUEUE_DEPTH = 4
@@ -79,6 +93,10 @@ class TrailWriter:
         self._next_id = 0
         self._closed = False
         self._error: BaseException | None = None
+        self._written = 0  # bytes in the file so far
+        self._index: list[tuple[int, ...]] = []  # one row of INDEX_FIELDS per block
+        self._best_offsets: list[int] = []
+        self._top = 0  # the ancestor stack's depth after the blocks written so far
         self._file: BinaryIO = open(self.path, "wb")  # noqa: SIM115 (closed in close())
         self._compressor = zstandard.ZstdCompressor(level=level, write_checksum=True)
         try:
@@ -125,28 +143,14 @@ class TrailWriter:
         self._put(msgpack.packb(frame, use_bin_type=True))
 
     def close(self, end: EndInfo) -> int:
-        """Write the `end` frame, wait for the writer thread, close the file.
+        """Write the `end` frame (with the block index), once every queued frame is written.
 
         Returns:
             The file's size in bytes.
         """
         if self._closed:
             return self.path.stat().st_size
-        frame: dict[str, Any] = {
-            "kind": END,
-            "status": end.status,
-            "nodes": end.nodes,
-            "recorded": end.recorded,
-            "decisions": {name: int(end.decisions.get(name, 0)) for name in DECISION_NAMES},
-            "seconds": round(end.seconds, 6),
-            "length": None if end.length is None else length_value(end.length, self._integral),
-            "tour": None if end.tour is None else [int(c) for c in end.tour],
-            **end.extra,
-        }
-        try:
-            self._put(msgpack.packb(frame, use_bin_type=True))
-        finally:
-            self._finish()
+        self._finish(end)
         return self.path.stat().st_size
 
     def __enter__(self) -> TrailWriter:
@@ -159,7 +163,7 @@ class TrailWriter:
         tb: TracebackType | None,
     ) -> None:
         if not self._closed:
-            self._finish()
+            self._finish(None)
 
     # -- internals -------------------------------------------------------------------------
 
@@ -167,14 +171,63 @@ class TrailWriter:
         if self._error is not None:
             raise self._error
         if self._queue is None:
-            self._emit(self._pack(item))
+            self._write(item)
         else:
             self._queue.put(item)
 
-    def _pack(self, item: tuple[int, dict[str, NDArray[Any]]] | bytes) -> bytes:
+    def _write(self, item: tuple[int, dict[str, NDArray[Any]]] | bytes) -> None:
+        """Pack and write one frame, noting its place for the index."""
+        offset = self._written
         if isinstance(item, bytes):
-            return item
+            self._emit(item)
+            self._best_offsets.append(offset)
+            return
         first, block = item
+        self._emit(self._pack(first, block))
+        summary = block_summary(block[DEPTH], block[DECISION], self._top)
+        self._top = summary.exit_top
+        self._index.append(
+            (
+                offset,
+                self._written,
+                first,
+                len(block[DEPTH]),
+                CODECS.index(self.codec),
+                summary.min_depth,
+                summary.max_depth,
+                summary.entry_top,
+                *summary.decisions,
+            )
+        )
+
+    def _end_frame(self, end: EndInfo) -> bytes:
+        """The end frame; with the block index and, last, its own offset when they fit."""
+        frame: dict[str, Any] = {
+            "kind": END,
+            "status": end.status,
+            "nodes": end.nodes,
+            "recorded": end.recorded,
+            "decisions": {name: int(end.decisions.get(name, 0)) for name in DECISION_NAMES},
+            "seconds": round(end.seconds, 6),
+            "length": None if end.length is None else length_value(end.length, self._integral),
+            "tour": None if end.tour is None else [int(c) for c in end.tour],
+            **{k: v for k, v in end.extra.items() if k not in (INDEX_KEY, INDEX_AT_KEY)},
+        }
+        if len(self._index) > MAX_INDEX_BLOCKS or len(self._best_offsets) > MAX_INDEX_BEST:
+            return bytes(msgpack.packb(frame, use_bin_type=True))
+        frame[INDEX_KEY] = {
+            "fields": list(INDEX_FIELDS),
+            "blocks": np.array(self._index, dtype="<i8").reshape(-1, len(INDEX_FIELDS)).tobytes(),
+            BEST: np.array(self._best_offsets, dtype="<i8").tobytes(),
+        }
+        packer = msgpack.Packer(use_bin_type=True)
+        body = b"".join(packer.pack(k) + packer.pack(v) for k, v in frame.items())
+        # The locator is packed by hand as a uint64, so it is always the file's last 9 bytes.
+        locator = INDEX_TAIL + struct.pack(">Q", self._written)
+        head = bytes(packer.pack_map_header(len(frame) + 1))
+        return b"".join((head, body, locator))
+
+    def _pack(self, first: int, block: dict[str, NDArray[Any]]) -> bytes:
         if self.codec == "zstd":
             payload = {
                 name: self._compressor.compress(arr.tobytes()) for name, arr in block.items()
@@ -198,6 +251,7 @@ class TrailWriter:
             self._file.flush()
         except OSError as exc:
             raise TrailWriteError(self.path, exc) from exc
+        self._written += len(data)
 
     def _drain(self) -> None:
         assert self._queue is not None
@@ -208,16 +262,19 @@ class TrailWriter:
             if self._error is not None:
                 continue
             try:
-                self._emit(self._pack(item))
+                self._write(item)
             except BaseException as exc:
                 self._error = exc
 
-    def _finish(self) -> None:
+    def _finish(self, end: EndInfo | None) -> None:
+        """Drain the writer thread, then write `end` (if given) and close the file."""
         self._closed = True
         try:
             if self._queue is not None and self._thread is not None:
                 self._queue.put(None)
                 self._thread.join()
+            if end is not None and self._error is None:
+                self._emit(self._end_frame(end))
         finally:
             self._file.close()
         if self._error is not None:

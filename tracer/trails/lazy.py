@@ -1,0 +1,493 @@
+"""A trail file opened by its block index: columns decoded block by block, on demand.
+
+`open_blocks` indexes the file (`tracer.trails.blocks`) and returns a `BlockFile`: a
+`tracer.base.BlockSource` for the streaming analyses, and random access for a viewer.
+`column(name, lo, hi)` decodes only the blocks involved, through a least-recently-used cache
+bounded in bytes; the tree questions (parent, subtree end, path, the node for a prefix, the
+next node with a decision, decision counts) use the block summaries to skip every block
+that cannot hold the answer, and decode only the few that can. Each answer equals the
+in-memory `TreeIndex`'s, orphans included, because within a block the shape comes from the
+same `tree_shape` routine, run on the block behind the ancestor stack it starts with.
+"""
+
+from __future__ import annotations
+
+import threading
+from collections import OrderedDict
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+from types import TracebackType
+from typing import Any, BinaryIO
+
+import msgpack
+import numpy as np
+from numpy.typing import NDArray
+
+from tracer.base import (
+    CITY,
+    DECISION,
+    DECISION_NAMES,
+    DEPTH,
+    ORPHAN,
+    BestUpdate,
+    Column,
+    EndInfo,
+    InputError,
+    NodeBlock,
+    TrailHeader,
+)
+from tracer.trails.blocks import (
+    BlockIndex,
+    BlockScanner,
+    block_parents,
+    block_summary,
+    read_written_index,
+)
+from tracer.trails.reader import (
+    CorruptTrailError,
+    _Block,
+    _decode_column,
+    _Frames,
+    _unpacker,
+)
+
+#: Default bound of a `BlockFile`'s cache of decoded columns.
+DEFAULT_CACHE_BYTES = 64 * 1024 * 1024
+_PARENT = "(parent)"  # the cache key of a block's parent ids, beside its columns
+
+
+class _Cache:
+    """Decoded arrays by (block, column), least recently used first out, within `limit` bytes."""
+
+    def __init__(self, limit: int) -> None:
+        self.limit = limit
+        self.used = 0
+        self.peak = 0
+        self._items: OrderedDict[tuple[int, str], NDArray[Any]] = OrderedDict()
+
+    def get(self, key: tuple[int, str]) -> NDArray[Any] | None:
+        value = self._items.get(key)
+        if value is not None:
+            self._items.move_to_end(key)
+        return value
+
+    def put(self, key: tuple[int, str], value: NDArray[Any]) -> None:
+        if value.nbytes > self.limit or key in self._items:
+            return  # larger than the whole cache: used once, never kept
+        while self.used + value.nbytes > self.limit:
+            _, old = self._items.popitem(last=False)
+            self.used -= old.nbytes
+        self._items[key] = value
+        self.used += value.nbytes
+        self.peak = max(self.peak, self.used)
+
+    def clear(self) -> None:
+        self._items.clear()
+        self.used = 0
+
+
+class BlockFile:
+    """A trail file read lazily: the `BlockSource` protocol plus random access by id.
+
+    Attributes (the `BlockSource` ones): path, header, best, end, notice; also `index`
+    (the block index) and `corrupt` (the first corrupt frame found, or None).
+    """
+
+    def __init__(
+        self,
+        index: BlockIndex,
+        scanner: BlockScanner | None,
+        cache_bytes: int,
+        unused_index: str | None = None,
+    ) -> None:
+        self.index = index
+        self._scanner = scanner
+        self._unused_index = unused_index
+        self._cache = _Cache(cache_bytes)
+        self._lock = threading.RLock()
+        self._handle: BinaryIO = open(index.path, "rb")  # noqa: SIM115 (closed in close())
+        self._sync()
+
+    # -- the BlockSource protocol --------------------------------------------------------
+
+    @property
+    def count(self) -> int:
+        """How many node records are indexed."""
+        return self.index.total
+
+    def blocks(self) -> Iterator[NodeBlock]:
+        """Every indexed block in id order, each decoded afresh (not through the cache).
+
+        Raises:
+            CorruptTrailError: a block that does not decode, or disagrees with its summary.
+        """
+        for block in range(self.index.blocks):
+            first = int(self.index.values("first")[block])
+            with self._lock:
+                payload = self._payload(block)
+                columns = {
+                    col.name: self._decode(block, col, payload) for col in self.header.columns
+                }
+            yield NodeBlock(first, columns)
+
+    # -- growing -------------------------------------------------------------------------
+
+    def refresh(self, max_bytes: int | None = None) -> int:
+        """Index what was appended to a live file since; returns how many records are new."""
+        if self._scanner is None:
+            return 0
+        before = self.count
+        with self._lock:
+            self._scanner.step(max_bytes)
+            self._sync()
+        return self.count - before
+
+    @property
+    def progress(self) -> tuple[int, int, int]:
+        """(blocks indexed, bytes indexed, bytes in the file)."""
+        return self.index.progress
+
+    # -- columns -------------------------------------------------------------------------
+
+    def column(self, name: str, lo: int = 0, hi: int | None = None) -> NDArray[Any]:
+        """Records [lo, hi) of one column (a copy), decoding only the blocks involved.
+
+        Raises:
+            KeyError: the trail has no such column.
+            CorruptTrailError: a block involved does not decode.
+        """
+        col = self.header.column(name)
+        if col is None:
+            raise KeyError(name)
+        hi = self.count if hi is None else min(hi, self.count)
+        lo = max(0, lo)
+        if hi <= lo:
+            return np.empty((0, *col.dtype.shape), dtype=col.dtype.base)
+        first = self.index.values("first")
+        parts = []
+        for block in range(self.index.block_of(lo), self.index.block_of(hi - 1) + 1):
+            values = self._cached(block, name)
+            start = int(first[block])
+            parts.append(values[max(lo - start, 0) : hi - start])
+        return np.concatenate(parts)
+
+    @property
+    def cache_used(self) -> int:
+        """Bytes of decoded columns the cache holds now."""
+        return self._cache.used
+
+    @property
+    def cache_peak(self) -> int:
+        """The most bytes the cache has held at once."""
+        return self._cache.peak
+
+    @property
+    def cache_limit(self) -> int:
+        """The cache's bound in bytes."""
+        return self._cache.limit
+
+    @property
+    def tree(self) -> BlockTree:
+        """The tree questions of `tracer.analysis.TreeIndex`, answered from the blocks."""
+        return BlockTree(self)
+
+    # -- closing -------------------------------------------------------------------------
+
+    def close(self) -> None:
+        """Release the file (and the scanner of a live one)."""
+        self._handle.close()
+        if self._scanner is not None:
+            self._scanner.close()
+        self._cache.clear()
+
+    def __enter__(self) -> BlockFile:
+        return self
+
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
+        self.close()
+
+    # -- internals -----------------------------------------------------------------------
+
+    def _sync(self) -> None:
+        if self._scanner is not None and self._scanner.index is not None:
+            self.index = self._scanner.index
+        index = self.index
+        self.path: str = index.path
+        self.header: TrailHeader = index.header
+        self.best: list[BestUpdate] = index.best
+        self.end: EndInfo | None = index.end
+        self.notice: str | None = index.notice
+        if self._unused_index is not None:
+            self.notice = f"{self._unused_index}; indexed by scanning" + (
+                f" ({index.notice})" if index.notice else ""
+            )
+        self.corrupt: CorruptTrailError | None = index.corrupt
+
+    def _block(self, node: int) -> int:
+        if not 0 <= node < self.count:
+            raise IndexError(f"node {node} is outside 0..{self.count - 1}")
+        return self.index.block_of(node)
+
+    def _at(self, name: str, node: int) -> Any:
+        block = self._block(node)
+        return self._cached(block, name)[node - int(self.index.values("first")[block])]
+
+    def _parents(self, block: int) -> NDArray[np.int64]:
+        with self._lock:
+            found = self._cache.get((block, _PARENT))
+            if found is None:
+                first = int(self.index.values("first")[block])
+                entry_top = int(self.index.values("entry_top")[block])
+                found = block_parents(first, entry_top, self._cached(block, DEPTH))
+                self._cache.put((block, _PARENT), found)
+            return found
+
+    def _cached(self, block: int, name: str) -> NDArray[Any]:
+        with self._lock:
+            found = self._cache.get((block, name))
+            if found is None:
+                col = self.header.column(name)
+                assert col is not None
+                found = self._decode(block, col, self._payload(block))
+                self._cache.put((block, name), found)
+            return found
+
+    def _payload(self, block: int) -> dict[str, bytes]:
+        """A block's compressed columns, re-read from its byte range and re-checked."""
+        offset, stop, first, count = (
+            int(self.index.values(name)[block]) for name in ("offset", "stop", "first", "count")
+        )
+        self._handle.seek(offset)
+        data = self._handle.read(stop - offset)
+        frames = _Frames(self.path)
+        frames.header, frames.total, frames.header_end = self.header, first, self.index.header_end
+        unpacker = _unpacker(None)
+        unpacker.feed(data)
+        try:
+            while unpacker.tell() < len(data):
+                at = offset + unpacker.tell()
+                frame = unpacker.unpack()
+                frames.here = offset + unpacker.tell()
+                frames.take(frame, at)
+        except (msgpack.UnpackException, ValueError) as exc:
+            raise self._bad(block, f"its frame does not read ({exc})") from None
+        frames.finish()
+        blocks: list[_Block] = frames.blocks
+        if len(blocks) != 1 or (blocks[0].nodes, blocks[0].codec) != (
+            count,
+            self.index.codec(block),
+        ):
+            raise self._bad(block, "its frame is not the block the index describes")
+        return blocks[0].payload
+
+    def _decode(self, block: int, col: Column, payload: dict[str, bytes]) -> NDArray[Any]:
+        count = int(self.index.values("count")[block])
+        values = _decode_column(self.header, col, self.index.codec(block), payload[col.name], count)
+        if isinstance(values, str):
+            raise self._bad(block, values)
+        if col.name in (DEPTH, DECISION):
+            self._check_summary(block, col.name, values)
+        return values
+
+    def _check_summary(self, block: int, name: str, values: NDArray[Any]) -> None:
+        """A decoded depth or decision column must agree with the block's index row."""
+        if name == DECISION:
+            counts = np.bincount(values, minlength=len(DECISION_NAMES))
+            if not (counts == self.index.decisions[block]).all():
+                raise self._bad(block, "its decisions disagree with the index")
+            return
+        tops = self.index.values("entry_top")
+        summary = block_summary(values, np.zeros(0, dtype=np.uint8), int(tops[block]))
+        later = tops[block + 1 : block + 2]
+        expected = (self.index.values("min_depth")[block], self.index.values("max_depth")[block])
+        if (summary.min_depth, summary.max_depth) != tuple(int(v) for v in expected) or (
+            len(later) and int(later[0]) != summary.exit_top
+        ):
+            raise self._bad(block, "its depths disagree with the index")
+
+    def _bad(self, block: int, problem: str) -> CorruptTrailError:
+        first = int(self.index.values("first")[block])
+        offset = int(self.index.values("offset")[block])
+        message = f"node block {block} (ids {first}..): {problem}"
+        return CorruptTrailError(self.path, offset, message, None)
+
+
+class BlockTree:
+    """Parents, subtree ends, paths, prefixes and counts of a `BlockFile`, by its summaries.
+
+    The names and answers are `TreeIndex`'s; only the blocks that can hold an answer are
+    decoded (through the file's cache), every other block is skipped by its summary.
+    """
+
+    def __init__(self, file: BlockFile) -> None:
+        self._file = file
+
+    @property
+    def count(self) -> int:
+        """How many records the tree has (so far, for a live file)."""
+        return self._file.count
+
+    def subtree(self, node: int) -> tuple[int, int]:
+        """The id range [start, stop) of `node`'s subtree."""
+        return node, self.subtree_end(node)
+
+    def depth(self, node: int) -> int:
+        """The depth of record `node`."""
+        return int(self._file._at(DEPTH, node))
+
+    def parent(self, node: int) -> int:
+        """The parent's id; `ROOT` at depth 0, `ORPHAN` for a record jumping levels down."""
+        block = self._file._block(node)
+        value = int(self._file._parents(block)[node - int(self._file.index.values("first")[block])])
+        if value > -3:
+            return value
+        return self._last_at_most(int(self._file.index.values("first")[block]), -3 - value)
+
+    def subtree_end(self, node: int) -> int:
+        """One past `node`'s subtree: the first later record at its depth or above."""
+        if self.parent(node) == ORPHAN:
+            return node + 1
+        d = self.depth(node)
+        block = self._file._block(node)
+        first = self._file.index.values("first")
+        start = int(first[block])
+        depth = self._file._cached(block, DEPTH)
+        hit = np.flatnonzero(depth[node + 1 - start :] <= d)
+        if len(hit):
+            return node + 1 + int(hit[0])
+        later = np.flatnonzero(self._file.index.values("min_depth")[block + 1 :] <= d)
+        if not len(later):
+            return self._file.count
+        block += 1 + int(later[0])
+        hit = np.flatnonzero(self._file._cached(block, DEPTH) <= d)
+        return int(first[block]) + int(hit[0])
+
+    def path(self, node: int) -> list[int]:
+        """Cities from the start city to `node` (O(depth) lookups)."""
+        cities: list[int] = []
+        while node >= 0:
+            cities.append(int(self._file._at(CITY, node)))
+            node = self.parent(node)
+        return cities[::-1]
+
+    def ancestors(self, node: int) -> list[int]:
+        """Ids from the root down to `node`, inclusive."""
+        ids: list[int] = []
+        while node >= 0:
+            ids.append(node)
+            node = self.parent(node)
+        return ids[::-1]
+
+    def children(self, node: int) -> list[int]:
+        """Ids of `node`'s children, in order (jumping over each child's subtree)."""
+        out: list[int] = []
+        child, stop = node + 1, self.subtree_end(node)
+        while child < stop:
+            out.append(child)
+            child = self.subtree_end(child)
+        return out
+
+    def node_for_prefix(self, prefix: Sequence[int]) -> int | None:
+        """The node whose path is exactly `prefix`, or None if it was not recorded."""
+        if not prefix or self._file.count == 0 or int(self._file._at(CITY, 0)) != prefix[0]:
+            return None
+        node = 0
+        for city in prefix[1:]:
+            match = None
+            child, stop = node + 1, self.subtree_end(node)
+            while child < stop:
+                if int(self._file._at(CITY, child)) == city:
+                    match = child
+                    break
+                child = self.subtree_end(child)
+            if match is None:
+                return None
+            node = match
+        return node
+
+    def next_decision(self, code: int, after: int) -> int | None:
+        """The first id after `after` whose decision is `code`, or None."""
+        index, start = self._file.index, max(after + 1, 0)
+        if start >= self._file.count:
+            return None
+        first = index.values("first")
+        block = index.block_of(start)
+        own = self._file._cached(block, DECISION)[start - int(first[block]) :]
+        hit = np.flatnonzero(own == code)
+        if len(hit):
+            return start + int(hit[0])
+        later = np.flatnonzero(index.decisions[block + 1 :, code] > 0)
+        if not len(later):
+            return None
+        block += 1 + int(later[0])
+        hit = np.flatnonzero(self._file._cached(block, DECISION) == code)
+        return int(first[block]) + int(hit[0])
+
+    def decision_counts(self, start: int = 0, stop: int | None = None) -> dict[str, int]:
+        """How many records in [start, stop) took each decision: whole blocks by summary."""
+        index = self._file.index
+        stop = self._file.count if stop is None else min(stop, self._file.count)
+        start = max(0, start)
+        counts = np.zeros(len(DECISION_NAMES), dtype=np.int64)
+        if stop > start:
+            first, count = index.values("first"), index.values("count")
+            lo, hi = index.block_of(start), index.block_of(stop - 1)
+            inner_lo = lo if start == int(first[lo]) else lo + 1
+            inner_hi = hi if stop < int(first[hi] + count[hi]) else hi + 1
+            if inner_lo < inner_hi:
+                counts += index.decisions[inner_lo:inner_hi].sum(axis=0)
+            for edge in sorted({lo, hi} - set(range(inner_lo, inner_hi))):
+                a = max(start, int(first[edge]))
+                b = min(stop, int(first[edge] + count[edge]))
+                values = self._file.column(DECISION, a, b)
+                counts += np.bincount(values, minlength=len(DECISION_NAMES))
+        return {name: int(counts[i]) for i, name in enumerate(DECISION_NAMES)}
+
+    def _last_at_most(self, before: int, depth: int) -> int:
+        """The last id before `before` at `depth` or above (blocks deeper throughout skipped)."""
+        first = self._file.index.values("first")
+        block = self._file.index.block_of(before - 1)
+        while block >= 0:
+            if int(self._file.index.values("min_depth")[block]) <= depth:
+                values = self._file._cached(block, DEPTH)[: before - int(first[block])]
+                hit = np.flatnonzero(values <= depth)
+                if len(hit):
+                    return int(first[block]) + int(hit[-1])
+            block -= 1
+        raise CorruptTrailError(
+            self._file.path, 0, f"no record at depth {depth} before id {before}", None
+        )
+
+
+def open_blocks(
+    path: str | Path, *, cache_bytes: int = DEFAULT_CACHE_BYTES, use_index: bool = True
+) -> BlockFile:
+    """Open a trail file lazily: from the index its writer left, or by scanning it.
+
+    A file without a sound index (a live or crashed run, a cut or damaged index) is scanned
+    once; `refresh()` then follows it as it grows.
+
+    Raises:
+        InputError: the file cannot be opened or does not start with a header.
+    """
+    p = Path(path)
+    found = read_written_index(p) if use_index else None
+    if isinstance(found, BlockIndex):
+        return BlockFile(found, None, cache_bytes)
+    scanner = BlockScanner(p)
+    try:
+        index = scanner.step()
+    except BaseException:
+        scanner.close()
+        raise
+    if index is None:
+        scanner.close()
+        if p.stat().st_size:
+            raise InputError(p, "stops inside its header frame: not a complete trail", offset=0)
+        raise InputError(p, "empty: no header frame, not a trail")
+    return BlockFile(index, scanner, cache_bytes, found if isinstance(found, str) else None)
