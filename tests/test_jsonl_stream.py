@@ -134,3 +134,18 @@ def test_import_command_streams_and_reports(trace_lines: list[str], tmp_path: Pa
     assert main(["import", str(src), "-o", str(out), "--chunk-mb", "0.1", "--json"]) == 0
     jsonl.import_jsonl(src, tmp_path / "whole.trail")
     assert out.read_bytes() == (tmp_path / "whole.trail").read_bytes()
+
+
+def test_whole_file_walk_equals_the_level_by_level_tree(
+    trace_lines: list[str], tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A pre-order trace read whole: the one-walk tree gives the same trail as the level by
+    level one (the walk switched off by allowing it no cities)."""
+    src = write(tmp_path / "t.jsonl", trace_lines)
+    walked = jsonl.read_jsonl(src)
+    monkeypatch.setattr(jsonl, "MAX_WALK_CITIES", 0)
+    levels = jsonl.read_jsonl(src)
+    assert list(walked.columns) == list(levels.columns)
+    for name, column in walked.columns.items():
+        assert column.tobytes() == levels.columns[name].tobytes(), name
+    assert walked.best == levels.best and walked.end == levels.end

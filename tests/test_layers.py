@@ -25,6 +25,8 @@ TRACER = ROOT / "tracer"
 #: Adding a public name on purpose? Add it here too, in the same change.
 PUBLIC: dict[str, set[str]] = {
     "tracer.base": {
+        "DECODED_ALLOWANCE",
+        "MAX_DECODED_RATIO",
         "BlockSource",
         "NodeBlock",
         "memory_blocks",
@@ -197,6 +199,7 @@ PUBLIC: dict[str, set[str]] = {
         "validate",
     },
     "tracer.analysis": {
+        "DecisionRanks",
         "CULPRITS",
         "FINAL_INCUMBENT",
         "KINDS",
@@ -248,6 +251,9 @@ PUBLIC: dict[str, set[str]] = {
         "values_at",
         "windows",
         "Window",
+        "in_memory_bytes",
+        "stream_explain",
+        "path_remainder",
     },
 }
 #: Subpackages below the command line, lowest first (the order of the layers contract).

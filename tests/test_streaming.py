@@ -27,7 +27,9 @@ from tracer.analysis import (
     TreeIndex,
     completion_table,
     depth_stats,
+    explain,
     recheck,
+    stream_explain,
     stream_recheck,
     stream_stats,
     values_at,
@@ -44,10 +46,14 @@ from tracer.base import (
     Trail,
     memory_blocks,
 )
+from tracer.cli import main
+from tracer.cli.check import open_sized
 from tracer.search.driver import SearchSettings
 from tracer.search.faults import FAULTS
+from tracer.trails import BlockFile
 from tracer.trails.jsonl import read_jsonl
 from tracer.trails.reader import read_trail
+from tracer.trails.writer import TrailWriter
 
 LoadReference = Callable[[str], Instance]
 #: (block size, window rows): blocks smaller, equal and larger than the windows.
@@ -226,6 +232,14 @@ def test_imported_jsonl_trace(solved: Callable[..., Trail], tmp_path: Path) -> N
 
 def test_visit_order_trace(tmp_path: Path) -> None:
     """A best-first trace (a visit column, frames placed by visit position) streams the same."""
+    trail = _best_first_trace(tmp_path)
+    assert trail.header.solver.visit_order
+    _check_both(trail)
+    _same_stats(trail)
+
+
+def _best_first_trace(tmp_path: Path) -> Trail:
+    """A JSON Lines trace of a search that expands open paths in random order."""
     rng = np.random.default_rng(2)
     n = 6
     d = rng.integers(1, 50, size=(n, n))
@@ -271,15 +285,19 @@ def test_visit_order_trace(tmp_path: Path) -> None:
             paths.append(path)
     lines.append({"kind": "end", "status": "limit"})
     (tmp_path / "bf.jsonl").write_text("".join(json.dumps(x) + "\n" for x in lines))
-    trail = read_jsonl(tmp_path / "bf.jsonl")
-    assert trail.header.solver.visit_order
-    _check_both(trail)
-    _same_stats(trail)
+    return read_jsonl(tmp_path / "bf.jsonl")
 
 
 def test_truncated_file(solved: Callable[..., Trail], tmp_path: Path) -> None:
     """A trail file cut short (no end frame, a notice) streams the same report."""
-    source = Path(solved("burma14", cutoff=1, max_nodes=150_000).path)
+    whole = solved("burma14", cutoff=2, max_nodes=20_000)
+    source = tmp_path / "blocks.trail"
+    with TrailWriter(source, whole.header) as writer:  # many small nodes frames
+        frames = sorted(whole.best, key=lambda b: b.at)
+        for lo in range(0, whole.count, 1500):
+            while frames and frames[0].at < lo + 1500:
+                writer.write_best(frames.pop(0))
+            writer.write_nodes({k: v[lo : lo + 1500] for k, v in whole.columns.items()})
     data = source.read_bytes()
     cut = tmp_path / "cut.trail"
     for keep in (len(data) * 2 // 3, len(data) - 3):  # inside a nodes frame, at the end
@@ -299,19 +317,88 @@ def test_empty_trail(solved: Callable[..., Trail]) -> None:
     _same_stats(empty)
 
 
+# -- why -------------------------------------------------------------------------------------
+
+
+def _same_why(trail: Trail, tour: list[int] | None, table: Any) -> None:
+    """`stream_explain` gives the report `explain` gives, at several block and window sizes."""
+    whole = explain(trail, TreeIndex(trail.columns, trail.best), tour=tour, table=table)
+    for size, rows in ((1, 5), (777, 300), (4096, None)):
+        if size == 1 and trail.count > 20_000:
+            continue
+        got = stream_explain(memory_blocks(trail, size), tour=tour, table=table, rows=rows)
+        assert got.to_json() == whole.to_json()
+
+
+@pytest.mark.parametrize("fault", [None, "tree-spans-ends", "squared-lengths", "penalty-once"])
+def test_why(solved: Callable[..., Trail], fault: str | None) -> None:
+    """Where the optimal tour's branch was cut, and why: the same with and without the
+    oracle, for either direction of the tour, clean or faulty."""
+    bound = "penalties" if fault == "penalty-once" else "tree+links"
+    trail = solved("burma14", cutoff=1, fault=fault, bound=bound, max_nodes=400_000)
+    table = completion_table(trail.header.instance)
+    tour = list(trail.best[-1].tour)
+    _same_why(trail, None, table)
+    _same_why(trail, tour[::-1], None)
+
+
+def test_why_on_a_cut_trail(solved: Callable[..., Trail]) -> None:
+    """A trail that stops inside the branch's subtree says so, streamed or not."""
+    whole = solved("burma14", cutoff=1, max_nodes=400_000)
+    cut = dataclasses.replace(
+        whole, columns={k: v[: whole.count // 3] for k, v in whole.columns.items()}, end=None
+    )
+    table = completion_table(whole.header.instance)
+    report = explain(cut, TreeIndex(cut.columns, cut.best), tour=None, table=table)
+    assert "stops" in report.explanation
+    _same_why(cut, None, table)
+
+
+def test_why_on_a_visit_order_trace(tmp_path: Path) -> None:
+    """A best-first trace's branch and verdict are the same streamed (visit positions)."""
+    trail = _best_first_trace(tmp_path)
+    table = completion_table(trail.header.instance)
+    _same_why(trail, None, table)
+
+
+# -- the commands --------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("command", ["check", "stats", "why"])
+def test_commands_print_the_same_streamed(
+    solved: Callable[..., Trail], capsys: pytest.CaptureFixture[str], command: str
+) -> None:
+    """check, stats and why print the same text and JSON whether the trail is read whole
+    or, under a 1 MB --memory-mb, block by block."""
+    path = solved("ulysses16", cutoff=2, fault="tree-spans-ends", max_nodes=60_000).path
+    streamed = open_sized(path, 1)
+    assert isinstance(streamed, BlockFile)  # 1 MB is too little: the blocks are streamed
+    streamed.close()
+    assert isinstance(open_sized(path, 4096), Trail)
+    for extra in ([], ["--json"]):
+        printed = []
+        for memory in ("4096", "1"):
+            status = main([command, path, *extra, "--memory-mb", memory])
+            printed.append((status, capsys.readouterr().out))
+        assert printed[0] == printed[1]
+        assert printed[0][1]
+
+
 # -- the windows themselves ----------------------------------------------------------------
 
 
 def test_windows_carry_the_path(solved: Callable[..., Trail]) -> None:
-    """Each window's carried rows are exactly its first record's ancestors, and windows
-    tile the trail; the memory a window holds is bounded by its rows plus the path."""
+    """Each window carries exactly the path of the record before it (which holds its
+    first record's parent), windows tile the trail, and a window holds its rows, that
+    path and one record of lookahead."""
     trail = solved("burma14", cutoff=2, max_nodes=20_000)
     index = TreeIndex(trail.columns, trail.best)
     seen = 0
     for window in windows(memory_blocks(trail, 333), 100):
         assert window.first == seen
         carried = window.ids[: window.seeded].tolist()
-        assert carried == index.ancestors(seen)[:-1]
+        assert carried == (index.ancestors(seen - 1) if seen else [])
+        assert index.parent[seen] < 0 or int(index.parent[seen]) in carried
         assert window.trail.count <= window.count + trail.n + 1
         seen += window.count
     assert seen == trail.count

@@ -112,3 +112,30 @@ def test_incumbent_uses_visit_order_when_present() -> None:
     }
     index = TreeIndex(columns, [BestUpdate(at=2, node=-1, length=7.0, tour=(0, 1, 2))])
     assert index.incumbent_at(np.arange(3)).tolist() == [math.inf, 7.0, math.inf]
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    preorder_trees(),
+    st.frozensets(st.integers(0, len(DECISION_NAMES) - 1), min_size=1),
+    st.integers(1, 5),
+)
+def test_decision_ranks_match_a_plain_scan(tree, codes, repeat):
+    """rank, select, keeps and between agree with a Python list of the kept ids.
+
+    The tree is repeated so the counts cross several 64-node blocks.
+    """
+    depths, cities, decisions = tree
+    depths, cities, decisions = depths * repeat, cities * repeat, decisions * repeat
+    ranks = index_of(depths, cities, decisions).decision_ranks(codes)
+    kept = [i for i, d in enumerate(decisions) if d in codes]
+    for node in range(len(decisions) + 1):
+        assert ranks.rank(node) == sum(1 for i in kept if i < node)
+    for k, node in enumerate(kept):
+        assert ranks.select(k) == node
+        assert ranks.keeps(node)
+    assert [n for n in range(len(decisions)) if ranks.keeps(n)] == kept
+    if kept:
+        first, last = kept[0], kept[-1]
+        assert ranks.between(first, last).tolist() == kept
+        assert ranks.between(last, last).tolist() == [last]

@@ -45,6 +45,24 @@ def test_row_views_agree_on_ranges_and_arrays():
         assert view.holds(19) and not view.holds(20)
 
 
+def test_decision_rows_agree_with_the_kept_id_array(model):
+    """A decision filter's rows (block counts, no array) answer like an array of its ids."""
+    decision = model.index.decision
+    for lo, hi, codes in ((0, model.count, {1}), (37, 1500, {1, 2}), (200, 260, {0, 3, 4})):
+        ranked = RowView(lo, hi, ranks=model.index.decision_ranks(frozenset(codes)))
+        kept = [i for i in range(lo, hi) if int(decision[i]) in codes]
+        as_array = RowView(0, 0, np.array(kept, dtype=np.int64))
+        assert len(ranked) == len(kept)
+        assert ranked.ids(0, len(ranked)).tolist() == kept
+        assert ranked.kept() is not None and ranked.kept().tolist() == kept
+        for row in range(0, len(kept), 7):
+            assert ranked.id_at(row) == kept[row]
+            assert ranked.ids(row, row + 64).tolist() == kept[row : row + 64]
+        for node in range(max(0, lo - 3), min(model.count, hi + 3)):
+            assert ranked.row_of(node) == as_array.row_of(node), node
+            assert ranked.holds(node) == as_array.holds(node), node
+
+
 def test_moves_follow_the_tree(model):
     """Parent, first child and siblings agree with the tree index's own answers."""
     index = model.index

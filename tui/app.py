@@ -49,12 +49,12 @@ from tui.bookmarks import Bookmark, clean_note, load_bookmarks, save_bookmarks, 
 from tui.bound_panel import BoundPanel
 from tui.city_map import CityMap
 from tui.dialogs import BookmarksScreen, HelpScreen, NoteDialog, StopDialog
-from tui.footer import SteadyFooter
 from tui.keys import keymap_path, load_keymap
 from tui.model import ViewerModel
 from tui.node_list import NodeList, NodeListHeader
 from tui.outline import BranchOutline
 from tui.prompt_bar import FilterBar, GoToBar, PromptBar
+from tui.steady import SteadyFooter, SteadyScreen
 from tui.walkthrough import walkthrough
 
 #: Play speeds, in steps per second.
@@ -281,6 +281,9 @@ class PrunetrailApp(App[None]):
 
     # -- layout --------------------------------------------------------------------------
 
+    def get_default_screen(self) -> Screen[Any]:
+        return SteadyScreen(id="_default")
+
     def compose(self) -> ComposeResult:
         # The main screen's widgets are kept by reference: `query_one` on the app searches
         # the active screen, which is a dialog while one is open.
@@ -477,10 +480,11 @@ class PrunetrailApp(App[None]):
         footer = self._footer
 
         def done(value: Any) -> None:
-            self._work.display = True
-            self._node_list.focus()
-            footer.held = False
-            then(value)
+            with self.batch_update():
+                self._work.display = True
+                self._node_list.focus()
+                footer.held = False
+                then(value)
 
         footer.held = True
         self._work.display = False

@@ -3,7 +3,8 @@
 Every panel reads the same `ViewerModel`, so the screen is one function of it. Nothing here
 holds a Python object per node or a per-node array beyond the trail's own columns and the
 tree index: bounds and incumbents are computed for the rows on screen only, a filter keeps
-either an id range (prefix filters: two integers) or one int64 array of kept ids, and the
+an id range (prefix filters: two integers), a range and a decision set (decision filters,
+rows counted and found from the index's block counts), or one int64 array of kept ids, and the
 re-check's findings arrive as a sorted array of wrong ids that grows chunk by chunk.
 """
 
@@ -24,6 +25,7 @@ from tracer.analysis import (
     next_match,
     parse_filter,
 )
+from tracer.analysis.tree_index import DecisionRanks
 from tracer.base import COMPLETE, DECISION_NAMES, Trail, bound_values
 
 #: Status shown for a trail without an end frame that is being followed.
@@ -35,25 +37,44 @@ RECHECK_STEP = 1 << 16
 
 
 class RowView:
-    """The node list's rows: an id range, or a sorted array of kept ids.
+    """The node list's rows: an id range, the nodes of a range with chosen decisions, or a
+    sorted array of kept ids.
 
     Args:
-        lo: first id of the range (range form).
-        hi: one past the last id (range form).
+        lo: first id of the range (range and decision forms).
+        hi: one past the last id (range and decision forms).
         ids: the kept ids, ascending (array form; `lo` and `hi` are then ignored).
+        ranks: the decisions kept (decision form): rows are counted and found from the
+            tree index's block counts, with no per-node array.
     """
 
-    def __init__(self, lo: int, hi: int, ids: NDArray[np.int64] | None = None) -> None:
+    def __init__(
+        self,
+        lo: int,
+        hi: int,
+        ids: NDArray[np.int64] | None = None,
+        ranks: DecisionRanks | None = None,
+    ) -> None:
         self.ids_array = ids
+        self.ranks = ranks if ids is None else None
         self.lo, self.hi = (lo, hi) if ids is None else (0, 0)
+        self._base = ranks.rank(lo) if ranks is not None else 0
+        if ids is not None:
+            self._len = len(ids)
+        elif ranks is not None:
+            self._len = ranks.rank(hi) - self._base
+        else:
+            self._len = hi - lo
 
     def __len__(self) -> int:
-        return len(self.ids_array) if self.ids_array is not None else self.hi - self.lo
+        return self._len
 
     def id_at(self, row: int) -> int:
         """The node shown on `row`."""
         if self.ids_array is not None:
             return int(self.ids_array[row])
+        if self.ranks is not None:
+            return self.ranks.select(self._base + row)
         return self.lo + row
 
     def ids(self, start: int, stop: int) -> NDArray[np.int64]:
@@ -62,20 +83,34 @@ class RowView:
         start = max(0, min(start, stop))
         if self.ids_array is not None:
             return self.ids_array[start:stop]
+        if self.ranks is not None:
+            if start == stop:
+                return np.zeros(0, dtype=np.int64)
+            return self.ranks.between(self.id_at(start), self.id_at(stop - 1))
         return np.arange(self.lo + start, self.lo + stop, dtype=np.int64)
 
     def row_of(self, node: int) -> int:
         """The row showing `node`, or the first row after it when it is not kept."""
         if self.ids_array is not None:
             return int(np.searchsorted(self.ids_array, node))
-        return min(max(node, self.lo), self.hi) - self.lo
+        clamped = min(max(node, self.lo), self.hi)
+        if self.ranks is not None:
+            return self.ranks.rank(clamped) - self._base
+        return clamped - self.lo
 
     def holds(self, node: int) -> bool:
         """Whether `node` is one of the rows."""
         if self.ids_array is not None:
             row = self.row_of(node)
             return row < len(self.ids_array) and int(self.ids_array[row]) == node
-        return self.lo <= node < self.hi
+        inside = self.lo <= node < self.hi
+        return inside and (self.ranks is None or self.ranks.keeps(node))
+
+    def kept(self) -> NDArray[np.int64] | None:
+        """Every kept id as an array, or None when the rows are a plain range."""
+        if self.ids_array is None and self.ranks is None:
+            return None
+        return self.ids(0, len(self))
 
 
 @dataclass(frozen=True)
@@ -169,6 +204,10 @@ class ViewerModel:
         if node_filter.range_only:
             lo, hi = kept_range(node_filter, self.index)
             return RowView(lo, hi)
+        if not (node_filter.depths or node_filter.wrong or node_filter.ratios):
+            lo, hi = kept_range(node_filter, self.index)
+            codes = frozenset.intersection(*node_filter.decisions)
+            return RowView(lo, hi, ranks=self.index.decision_ranks(codes))
         return RowView(0, 0, kept_ids(node_filter, self.trail, self.index, self.wrong_ids))
 
     def replace_trail(self, trail: Trail, index: TreeIndex) -> None:
@@ -258,6 +297,7 @@ class ViewerModel:
     def run_until(self, condition: StopCondition, node: int, direction: int) -> int | None:
         """The next node (in the rows shown) where the condition holds, or None."""
         rows = self.rows
+        kept = rows.kept()
         found = next_match(
             condition,
             self.trail,
@@ -265,9 +305,9 @@ class ViewerModel:
             node,
             direction,
             wrong_ids=self.wrong_ids,
-            kept=rows.ids_array,
+            kept=kept,
         )
-        if found is None or rows.ids_array is not None:
+        if found is None or kept is not None:
             return found
         return found if rows.lo <= found < rows.hi else None
 

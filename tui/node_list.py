@@ -9,14 +9,16 @@ the re-check's marks change. There is never a widget or a Python object per node
 from __future__ import annotations
 
 import math
-from typing import ClassVar
+from contextlib import suppress
+from typing import ClassVar, Self
 
 import numpy as np
 from rich.segment import Segment
 from rich.style import Style
 from rich.text import Text
 from textual.cache import LRUCache
-from textual.events import Click
+from textual.dom import NoScreen
+from textual.events import Blur, Click, DescendantBlur, DescendantFocus, Focus
 from textual.geometry import Region, Size
 from textual.message import Message
 from textual.reactive import reactive
@@ -69,8 +71,7 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
 
     DEFAULT_CSS = """
     NodeList { background: $surface; }
-    NodeList > .node-list--cursor { background: $primary 45%; text-style: bold; }
-    NodeList:focus > .node-list--cursor { background: $primary 70%; }
+    NodeList > .node-list--cursor { background: $primary 70%; text-style: bold; }
     NodeList > .node-list--wrong { color: $error; text-style: bold; }
     NodeList > .node-list--prune { color: $warning; }
     NodeList > .node-list--tour { color: $text-muted; }
@@ -101,6 +102,7 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
         self.header = header
         self._cache: LRUCache[int, Strip] = LRUCache(1024)
         self._styles: dict[str, Style] | None = None
+        self._styles_stale = False
         self._row_width = 0
         self.reload()
 
@@ -118,6 +120,28 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
         self._cache.clear()
         self.refresh()
 
+    # Focus moving in or out changes nothing drawn here (the cursor row looks the same), so
+    # the whole-list repaints Textual makes on focus and blur are skipped.
+    def focus(self, scroll_visible: bool = True) -> Self:
+        """Take the focus (without repainting the list)."""
+
+        def take() -> None:
+            with suppress(NoScreen):
+                self.screen.set_focus(self, scroll_visible=scroll_visible)
+
+        self.app.call_later(take)
+        return self
+
+    def _on_focus(self, event: Focus) -> None:
+        self.has_focus = True
+        if self.parent is not None:
+            self.parent.post_message(DescendantFocus(self))
+
+    def _on_blur(self, event: Blur) -> None:
+        self.has_focus = False
+        if self.parent is not None:
+            self.parent.post_message(DescendantBlur(self))
+
     def validate_cursor_row(self, row: int) -> int:
         return max(0, min(row, len(self.model.rows) - 1))
 
@@ -130,9 +154,13 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
         )
 
     def notify_style_update(self) -> None:
+        """Styles may have changed: check at the next line drawn (cached lines hold colours).
+
+        Focus moving in or out restyles the widget without changing its colours, so the
+        cached lines are kept unless the colours really differ.
+        """
         super().notify_style_update()
-        self._styles = None
-        self._cache.clear()
+        self._styles_stale = True
 
     def on_resize(self) -> None:
         self._cache.clear()
@@ -172,12 +200,15 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
         return self._row_width or self.size.width
 
     def _style_table(self) -> dict[str, Style]:
-        if self._styles is None:
-            self._styles = {
+        if self._styles is None or self._styles_stale:
+            styles = {
                 name: self.get_component_rich_style(f"node-list--{name}", partial=True)
                 for name in ("cursor", "wrong", "prune", "tour", "tour-better", "skip", "muted")
             }
-            self._styles["base"] = self.rich_style
+            styles["base"] = self.rich_style
+            if styles != self._styles:
+                self._cache.clear()
+            self._styles, self._styles_stale = styles, False
         return self._styles
 
     def render_line(self, y: int) -> Strip:

@@ -13,6 +13,7 @@ Run: python tests/bench/bench_jsonl.py
 from __future__ import annotations
 
 import importlib.util
+import math
 import subprocess
 import sys
 import tempfile
@@ -34,6 +35,7 @@ from tracer.trails._jsonl_scan import UNSUPPORTED  # noqa: E402
 #: The commit whose importer is the baseline (json.loads and a check per field).
 OLD_COMMIT = "8483669"
 NODES = 1_000_000
+REPEATS = 3
 TARGET = 5.0
 
 
@@ -95,21 +97,29 @@ def main() -> list[dict[str, str]]:
     write_jsonl(solve_to_trail(instance, folder / "w.trail", SearchSettings(max_nodes=2000)), warm)
     for read in (old.read_jsonl, typed_only, jsonl.read_jsonl):
         timed(read, warm)
+    readers = {
+        "previous (json)": old.read_jsonl,
+        "typed path only (msgspec)": typed_only,
+        "current (compiled lane + msgspec)": jsonl.read_jsonl,
+    }
+    results: dict[str, tuple[float, float]] = {}
+    load = Path("/proc/loadavg").read_text().split()[0]
+    for _ in range(REPEATS):  # interleaved, best of REPEATS: a busy moment counts less
+        for name, read in readers.items():
+            read_s, check_s, count = timed(read, trace)
+            assert count == trail.count
+            best = results.get(name, (math.inf, math.inf))
+            if read_s + check_s < sum(best):
+                results[name] = (read_s, check_s)
+    load += " → " + Path("/proc/loadavg").read_text().split()[0]
+    print(f"best of {REPEATS}, runs interleaved; 1-minute load average {load}\n")
     rows = []
-    results = {}
-    for name, read in (
-        ("previous (json)", old.read_jsonl),
-        ("typed path only (msgspec)", typed_only),
-        ("current (compiled lane + msgspec)", jsonl.read_jsonl),
-    ):
-        read_s, check_s, count = timed(read, trace)
-        results[name] = (read_s, check_s)
+    for name, (read_s, check_s) in results.items():
         total = read_s + check_s
         rows.append(
             f"| {name} | {read_s:.2f} s | {check_s:.2f} s | {total:.2f} s "
             f"| {lines / total / 1e6:.2f} M |"
         )
-        assert count == trail.count
     print("| importer | import | check | import + check | lines/s |")
     print("|---|---:|---:|---:|---:|")
     print("\n".join(rows))

@@ -6,6 +6,7 @@ Ratios are measured side by side in this one run; each time is the best of three
 
 from __future__ import annotations
 
+import sys
 import tempfile
 import time
 from collections.abc import Callable
@@ -18,8 +19,18 @@ import zstandard
 
 from tracer.base.frames import BestUpdate, EndInfo
 from tracer.formats.load import load_instance
-from tracer.search.driver import SearchSettings, StartTour, make_start, run_search, trail_header
+from tracer.search.driver import (
+    SearchSettings,
+    StartTour,
+    child_order,
+    make_start,
+    run_search,
+    trail_header,
+)
 from tracer.trails.writer import TrailWriter
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from plain_search import plain_search
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 REPEATS = 3
@@ -78,10 +89,13 @@ def recorded(
     return r.nodes, size
 
 
-def main() -> None:
+def main() -> list[dict[str, str]]:
     gr17 = load_instance(DATA / "gr17.tsp")
     start = make_start(gr17, "nn", "2opt+oropt")
     run_search(gr17, SearchSettings(cutoff=0), start)  # compile / load the cache
+    children = child_order(gr17.matrix, SearchSettings().order)
+    plain_search(gr17.matrix, children, float(start.length), 0)  # compile / load the cache
+    summary: list[dict[str, str]] = []
     tmp = Path(tempfile.mkdtemp())
     print("## search and recording, gr17 (17 cities), start nn+2opt+oropt\n")
     print(
@@ -96,8 +110,27 @@ def main() -> None:
             "thread": lambda s=s: recorded(gr17, s, start, tmp / "b.trail"),
             "flat": lambda s=s: recorded(gr17, s, start, tmp / "c.trail", False),
         }
+        if cutoff == 0:
+            runs["baseline"] = lambda: (plain_search(gr17.matrix, children, start.length, 0), 0)
         best, (nodes, size) = interleaved(runs, repeats=3 if cutoff == 6 else 7)
         plain, rec, flat = best["plain"], best["thread"], best["flat"]
+        if cutoff == 0:
+            base = best["baseline"]
+            baseline_nodes = plain_search(gr17.matrix, children, start.length, 0)
+            assert baseline_nodes == nodes, "the plain baseline must search the same tree"
+            summary += [
+                _row("engine, cutoff 0, unrecorded", f"{nodes / plain / 1e6:.2f} M nodes/s", "≥ 4"),
+                _row(
+                    "engine rate / plain compiled baseline's",
+                    f"{base / plain:.2f} ({nodes / base / 1e6:.2f} M nodes/s plain)",
+                    "",
+                ),
+                _row("recording, cutoff 0 (writer thread)", f"{rec / plain:.2f}×", "≤ 1.15×"),
+                _row("bytes a node, cutoff 0", f"{size / nodes:.2f}", "≤ 6"),
+            ]
+        if cutoff == 6:
+            ratio = f"{rec / plain:.2f}×"
+            summary.append(_row("recording, cutoff 6 (writer thread)", ratio, "≤ 2×"))
         print(
             f"| {cutoff} | {nodes:,} | {plain:.3f} s | {nodes / plain / 1e6:.2f} "
             f"| {rec:.3f} s | {rec / plain:.2f} | {flat:.3f} s | {flat / plain:.2f} "
@@ -160,6 +193,12 @@ def main() -> None:
             f"\nbayg29, default settings, {label} (start tour included): {nodes:,} nodes, "
             f"{took:.1f} s{extra}"
         )
+        summary.append(_row(f"bayg29 default settings, {label}", f"{took:.1f} s", "< 20 s"))
+    return summary
+
+
+def _row(measure: str, value: str, target: str) -> dict[str, str]:
+    return {"measure": measure, "value": value, "target": target}
 
 
 if __name__ == "__main__":

@@ -35,7 +35,7 @@ MARKER = "@@bench-summary@@ "
 #: Smaller sizes for `--quick`, by script: module constants to set, or arguments for main().
 QUICK: dict[str, dict[str, Any]] = {
     "bench_cutoff": {"INSTANCES": ("burma14", "ulysses16"), "CUTOFFS": range(4)},
-    "bench_jsonl": {"NODES": 100_000},
+    "bench_jsonl": {"NODES": 100_000, "REPEATS": 1},
     "bench_oracle": {"NODES": 1_000_000, "REPEATS": 1},
     "bench_penalties": {"argv": ["ulysses22", "bays29", "--no-both"]},
     "bench_reader": {"NODES": 1_000_000},

@@ -36,9 +36,23 @@ from tracer.analysis.rechecking import (
 )
 from tracer.analysis.spanning import Remainder, SpanningTree, remainder, spanning_tree
 from tracer.analysis.stats import FINAL_INCUMBENT, DepthStats, depth_stats
-from tracer.analysis.streaming import Window, stream_recheck, stream_stats, values_at, windows
-from tracer.analysis.tree_index import TreeIndex
-from tracer.analysis.why import CULPRITS, WhyReport, explain, remainder_instance
+from tracer.analysis.streaming import (
+    Window,
+    in_memory_bytes,
+    stream_explain,
+    stream_recheck,
+    stream_stats,
+    values_at,
+    windows,
+)
+from tracer.analysis.tree_index import DecisionRanks, TreeIndex
+from tracer.analysis.why import (
+    CULPRITS,
+    WhyReport,
+    explain,
+    path_remainder,
+    remainder_instance,
+)
 
 __all__ = [
     "CULPRITS",
@@ -51,6 +65,7 @@ __all__ = [
     "CityLayout",
     "Comparison",
     "CompletionTable",
+    "DecisionRanks",
     "DepthStats",
     "Difference",
     "FilterError",
@@ -73,6 +88,7 @@ __all__ = [
     "depth_stats",
     "explain",
     "format_length",
+    "in_memory_bytes",
     "kept_ids",
     "kept_range",
     "narrate",
@@ -80,6 +96,7 @@ __all__ = [
     "node_step",
     "parse_filter",
     "parse_stops",
+    "path_remainder",
     "reaches",
     "recheck",
     "recompute_node",
@@ -88,6 +105,7 @@ __all__ = [
     "remainder_instance",
     "scaled_layout",
     "spanning_tree",
+    "stream_explain",
     "stream_recheck",
     "stream_stats",
     "values_at",

@@ -1,10 +1,12 @@
-"""The re-check and the per-depth figures over a trail read block by block, in bounded memory.
+"""The re-check, the per-depth figures and `why` over a trail read block by block, in bounded
+memory.
 
 A trail's records arrive as node blocks (`tracer.base.BlockSource`); they are cut into
-windows of at most `chunk_rows(n)` records. Each window is the ancestor stack of its first
-record (carried from the window before: in pre-order every record's parent is on it, so
-fewer than n rows), the window's own records, and one record of lookahead (whether a
-record has a child is whether the next one is its child). The window is a small `Trail`
+windows of at most `chunk_rows(n)` records. Each window is the search's path at the record
+before it (carried from the window before: in pre-order every parent that lies before the
+window is on it, and so is every earlier sibling the re-check's partial chains look at; at
+most n rows), the window's own records, and one record of lookahead (whether a record has
+a child is whether the next one is its child). The window is a small `Trail`
 with its own `TreeIndex`, and the same code that checks an in-memory trail checks it
 (`tracer.analysis.rechecking`, `tracer.analysis.stats`), keeping the results of the
 window's own records under their trail ids. So memory is one window and the carry, and the
@@ -24,9 +26,23 @@ from tracer.analysis.oracle import CompletionTable, best_completions
 from tracer.analysis.rechecking import RecheckReport, Tally, _Rule, chunk_rows
 from tracer.analysis.stats import DepthStats, DepthTally
 from tracer.analysis.tree_index import ORPHAN, TreeIndex
-from tracer.base import VISIT, BlockSource, NodeBlock, Trail
+from tracer.analysis.why import HARMFUL_SHOWN, Follow, Harm, WhyReport, judged, reference_cycle
+from tracer.base import VISIT, BlockSource, NodeBlock, Trail, TrailHeader
 
-__all__ = ["Window", "stream_recheck", "stream_stats", "values_at", "windows"]
+__all__ = [
+    "Window",
+    "in_memory_bytes",
+    "stream_explain",
+    "stream_recheck",
+    "stream_stats",
+    "values_at",
+    "windows",
+]
+
+#: Bytes a node costs an in-memory analysis beyond its columns: the tree index (parent, end,
+#: repeated flag: 9) and the re-check's per-node working arrays (measured: some 33 bytes a
+#: node in all on a tree+links trail whose columns take 15).
+_WORKING_BYTES = 20
 
 
 @dataclass(frozen=True)
@@ -34,12 +50,12 @@ class Window:
     """Consecutive records with the ancestors they need, as a small trail of their own.
 
     Attributes:
-        trail: rows [0, seeded) the carried ancestors, then the window's records, then at
+        trail: rows [0, seeded) the carried path, then the window's records, then at
             most one record of lookahead.
         index: the window's tree index; its incumbent lookups use trail ids (or visit
             positions), so they agree with the whole trail's.
         ids: the trail id of every row.
-        seeded: how many carried ancestor rows come first.
+        seeded: how many carried path rows come first.
         count: how many of the window's own records follow them.
     """
 
@@ -148,6 +164,12 @@ def _stack(index: TreeIndex, rows: int) -> NDArray[np.intp]:
     return np.asarray(index.ancestors(int(live[-1])), dtype=np.intp)
 
 
+def in_memory_bytes(header: TrailHeader, count: int) -> int:
+    """About how much memory analysing a trail of `count` records in memory takes."""
+    row = sum(np.dtype(column.dtype).itemsize for column in header.columns)
+    return count * (row + _WORKING_BYTES)
+
+
 def stream_recheck(
     source: BlockSource,
     *,
@@ -219,6 +241,28 @@ def stream_stats(source: BlockSource, table: CompletionTable | None = None) -> D
             completions = best_completions(window.trail, window.index, table)[lo:hi]
         tally.add(window.own(), window.first, completions)
     return tally.finish(oracle=table is not None)
+
+
+def stream_explain(
+    source: BlockSource,
+    *,
+    tour: Sequence[int] | None,
+    table: CompletionTable | None,
+    harmful_shown: int = HARMFUL_SHOWN,
+    rows: int | None = None,
+) -> WhyReport:
+    """`explain` over a block source: the same report, in one pass over the blocks
+    (`rows`: records per window, default `chunk_rows`)."""
+    matrix, cycle = reference_cycle(source, tour, table)
+    follow = Follow(cycle)
+    harm = Harm(matrix, harmful_shown) if table is not None else None
+    for window in windows(source, rows):
+        lo, hi = window.seeded, window.seeded + window.count
+        follow.add(window.trail, window.index, window.ids, lo, hi)
+        if harm is not None and table is not None:
+            completions = best_completions(window.trail, window.index, table)[lo:hi]
+            harm.add(window.trail, window.index, window.ids, lo, hi, completions)
+    return judged(source, follow, harm, table, matrix)
 
 
 def values_at(

@@ -30,7 +30,7 @@ from tracer.base import (
     tree_shape,
 )
 
-__all__ = ["ORPHAN", "ROOT", "TreeIndex"]
+__all__ = ["ORPHAN", "ROOT", "DecisionRanks", "TreeIndex"]
 
 _COUNT_STEP = 64
 
@@ -110,6 +110,10 @@ class TreeIndex:
         counts = self._counts_before(stop) - self._counts_before(start)
         return {name: int(counts[i]) for i, name in enumerate(DECISION_NAMES)}
 
+    def decision_ranks(self, codes: frozenset[int]) -> DecisionRanks:
+        """Counting and finding the nodes whose decision is one of `codes`, without an id list."""
+        return DecisionRanks(self, codes)
+
     def incumbent_at(self, nodes: NDArray[Any]) -> NDArray[np.float64]:
         """The incumbent length in force when each node was visited (inf before any tour)."""
         position = self.visit[nodes] if self.visit is not None else nodes
@@ -122,6 +126,47 @@ class TreeIndex:
         tail = self.decision[block * _COUNT_STEP : stop]
         counts = self._cum[block] + np.bincount(tail, minlength=len(DECISION_NAMES))
         return np.asarray(counts, dtype=np.int64)
+
+
+class DecisionRanks:
+    """The nodes whose decision is in a set, answered from the block counts in O(1) each.
+
+    `rank(node)` counts them before `node`; `select(k)` finds the k-th. Neither keeps a
+    per-node array: a decision filter over ten million nodes needs no kept-id list.
+
+    Args:
+        index: the tree index.
+        codes: the decision codes kept.
+    """
+
+    def __init__(self, index: TreeIndex, codes: frozenset[int]) -> None:
+        self.decision = index.decision
+        self.count = index.count
+        self.table = np.zeros(256, dtype=np.bool_)
+        self.table[sorted(codes)] = True
+        self._cum = index._cum[:, sorted(codes)].sum(axis=1)
+
+    def keeps(self, node: int) -> bool:
+        """Whether `node`'s decision is one of the codes."""
+        return bool(self.table[self.decision[node]])
+
+    def rank(self, node: int) -> int:
+        """How many kept nodes have an id below `node` (0..count)."""
+        node = max(0, min(node, self.count))
+        block = node // _COUNT_STEP
+        tail = self.decision[block * _COUNT_STEP : node]
+        return int(self._cum[block]) + int(np.count_nonzero(self.table[tail]))
+
+    def select(self, k: int) -> int:
+        """The id of the kept node with `k` kept nodes before it (0 <= k < rank(count))."""
+        block = int(np.searchsorted(self._cum, k, side="right")) - 1
+        start = block * _COUNT_STEP
+        hits = np.flatnonzero(self.table[self.decision[start : start + _COUNT_STEP]])
+        return start + int(hits[k - int(self._cum[block])])
+
+    def between(self, first: int, last: int) -> NDArray[np.int64]:
+        """Ids of the kept nodes in [first, last], ascending."""
+        return np.flatnonzero(self.table[self.decision[first : last + 1]]) + first
 
 
 def _block_counts(decision: NDArray[Any]) -> NDArray[np.int64]:

@@ -36,8 +36,10 @@ from tracer.analysis.oracle import CompletionTable, best_completions
 from tracer.analysis.rechecking import REL_TOL, recompute_node
 from tracer.analysis.tree_index import TreeIndex
 from tracer.base import (
+    CITY,
     DECISION,
     DECISION_NAMES,
+    DEPTH,
     LINK_IN,
     LINK_OUT,
     PARTIAL,
@@ -45,6 +47,7 @@ from tracer.base import (
     TREE,
     VISIT,
     BestUpdate,
+    BlockSource,
     Decision,
     Instance,
     Trail,
@@ -192,35 +195,67 @@ def explain(
         ValueError: no tour and no table, a tour that is not a permutation of the cities,
             or an empty trail.
     """
-    n = trail.n
-    if trail.count == 0:
+    matrix, cycle = reference_cycle(trail, tour, table)
+    if table is not None and completions is None:
+        completions = best_completions(trail, index, table)
+    follow = Follow(cycle)
+    ids = np.arange(trail.count, dtype=np.int64)
+    follow.add(trail, index, ids, 0, trail.count)
+    harm = Harm(matrix, harmful_shown) if completions is not None else None
+    if harm is not None and completions is not None:
+        harm.add(trail, index, ids, 0, trail.count, completions)
+    return judged(trail, follow, harm, table, matrix)
+
+
+def reference_cycle(
+    source: Trail | BlockSource, tour: Sequence[int] | None, table: CompletionTable | None
+) -> tuple[NDArray[Any], list[int]]:
+    """The instance's matrix and the reference tour from city 0 (`explain`'s arguments).
+
+    Raises:
+        ValueError: as `explain`.
+    """
+    if source.count == 0:
         raise ValueError("the trail holds no nodes")
-    matrix = np.asarray(trail.header.instance.matrix)
+    matrix = np.asarray(source.header.instance.matrix)
     if tour is None:
         if table is None:
             raise ValueError("give a reference tour, or a completion table for the optimum")
-        tour = _optimal_reference(trail, table, _Lengths(matrix))
-    cycle = _rotated(tour, n)
+        tour = _optimal_reference(source, table, _Lengths(matrix))
+    return matrix, _rotated(tour, source.header.instance.n)
+
+
+def judged(
+    source: Trail | BlockSource,
+    follow: Follow,
+    harm: Harm | None,
+    table: CompletionTable | None,
+    matrix: NDArray[Any],
+) -> WhyReport:
+    """The report once every record has been through `follow` (and `harm`, with the oracle):
+    the verdict at the branch's deepest node, judged on that node's path rows."""
+    view, view_index, row, ids, reaches_end = follow.branch(source)
+    cycle = follow.direction
     length = _cycle_length(matrix, cycle)
-    node, cycle = _deepest(index, cycle)
-    if table is not None and completions is None:
-        completions = best_completions(trail, index, table)
-    judge = _Judge(trail, index, table, completions, matrix)
-    report = judge.verdict(node, cycle, length)
-    report.tour, report.tour_length, report.node = cycle, length, node
-    if completions is not None:
-        judge.whole_tree(report, harmful_shown)
+    judge = _Judge(view, view_index, table, matrix, ids=ids)
+    report = judge.verdict(row, cycle, length, reaches_end)
+    report.tour, report.tour_length, report.node = cycle, length, int(ids[row])
+    if harm is not None:
+        harm.finish(report)
     else:
-        report.first_inadmissible = judge.along_branch(node, cycle, length)
+        report.first_inadmissible = judge.along_branch(row, cycle, length)
     return report
 
 
-def _optimal_reference(trail: Trail, table: CompletionTable, lengths: _Lengths) -> list[int]:
+def _optimal_reference(
+    trail: Trail | BlockSource, table: CompletionTable, lengths: _Lengths
+) -> list[int]:
     """A recorded incumbent of optimal length (the trail's own optimum), else the table's."""
+    n = trail.header.instance.n
     for frame in trail.best:
-        if lengths.same(float(frame.length), table.optimum) and len(frame.tour) == trail.n:
+        if lengths.same(float(frame.length), table.optimum) and len(frame.tour) == n:
             tour = list(frame.tour)
-            if sorted(tour) == list(range(trail.n)) and lengths.same(
+            if sorted(tour) == list(range(n)) and lengths.same(
                 _cycle_length(np.asarray(table.matrix), tour), table.optimum
             ):
                 return tour
@@ -241,48 +276,166 @@ def _cycle_length(matrix: NDArray[Any], cycle: Sequence[int]) -> float:
     return float(matrix[cities, np.roll(cities, -1)].sum())
 
 
-def _deepest(index: TreeIndex, cycle: list[int]) -> tuple[int, list[int]]:
-    """The deepest node on the tour's branch, over both directions (forward wins a tie)."""
-    best: tuple[int, int, list[int]] | None = None
-    backward = [cycle[0], *reversed(cycle[1:])]
-    for direction in (cycle, backward):
-        node = 0
-        depth = 0
-        if int(index.city[0]) == direction[0]:
-            for city in direction[1:]:
-                child = next((c for c in index.children(node) if int(index.city[c]) == city), None)
-                if child is None:
+class Follow:
+    """The deepest node on a tour's branch, over both directions (forward wins a tie),
+    found record block by record block in id order: in each direction the branch goes on
+    at the first child, in id order, whose city is the tour's next one.
+
+    For the node finally reached it keeps its path rows and the record after it (enough
+    to judge it), and whether a later record leaves its subtree.
+    """
+
+    def __init__(self, cycle: list[int]) -> None:
+        self.directions = (cycle, [cycle[0], *reversed(cycle[1:])])
+        self.node = [0, 0]
+        self.depth = [0, 0]
+        self.live = [False, False]
+        self.rows: list[dict[str, NDArray[Any]] | None] = [None, None]
+        self.row_ids: list[NDArray[np.int64] | None] = [None, None]
+        self.closed = [False, False]
+        self._started = False
+
+    @property
+    def _pick(self) -> int:
+        return 1 if self.depth[1] > self.depth[0] else 0
+
+    @property
+    def direction(self) -> list[int]:
+        """The tour in the direction the trail went deeper."""
+        return self.directions[self._pick]
+
+    def add(self, trail: Trail, index: TreeIndex, ids: NDArray[np.int64], lo: int, hi: int) -> None:
+        """Follow both directions through the rows [lo, hi) of a trail or window (`ids`:
+        each row's trail id; rows before `lo` are the path the window starts from)."""
+        if hi <= lo:
+            return
+        city = trail.columns[CITY]
+        if not self._started:
+            self._started = True
+            for k, direction in enumerate(self.directions):
+                self.live[k] = int(ids[lo]) == 0 and int(city[lo]) == direction[0]
+                if int(ids[lo]) == 0:
+                    self._keep(k, trail, index, ids, lo)
+        parent = index.parent[lo:hi]
+        parent_ids = np.where(parent >= 0, ids[np.maximum(parent, 0)], -1)
+        cities = city[lo:hi]
+        depth = trail.columns[DEPTH][lo:hi]
+        for k, direction in enumerate(self.directions):
+            while self.live[k] and self.depth[k] + 1 < len(direction):
+                want = direction[self.depth[k] + 1]
+                hits = np.flatnonzero((parent_ids == self.node[k]) & (cities == want))
+                if not hits.size:
                     break
-                node, depth = child, depth + 1
-        if best is None or depth > best[0]:
-            best = (depth, node, direction)
-    assert best is not None
-    return best[1], best[2]
+                self.node[k] = int(ids[lo + int(hits[0])])
+                self.depth[k] += 1
+                self._keep(k, trail, index, ids, lo + int(hits[0]))
+            if not self.closed[k]:
+                after = ids[lo:hi] > self.node[k]
+                self.closed[k] = bool((after & (depth <= self.depth[k])).any())
+
+    def _keep(
+        self, k: int, trail: Trail, index: TreeIndex, ids: NDArray[np.int64], row: int
+    ) -> None:
+        """Keep the node's path rows and the row after it (if the window has it)."""
+        rows = index.ancestors(row)
+        if row + 1 < trail.count:
+            rows.append(row + 1)
+        pick = np.asarray(rows, dtype=np.intp)
+        self.rows[k] = {name: column[pick] for name, column in trail.columns.items()}
+        self.row_ids[k] = ids[pick]
+        self.closed[k] = False
+
+    def branch(self, source: Trail | Any) -> tuple[Trail, TreeIndex, int, NDArray[np.int64], bool]:
+        """The deepest node's path as a small trail: (trail, index, the node's row, each
+        row's trail id, whether its subtree runs to the end of the records)."""
+        k = self._pick
+        cols, ids = self.rows[k], self.row_ids[k]
+        if cols is None or ids is None:
+            raise ValueError("the trail holds no nodes")
+        view = Trail(source.path, source.header, cols, source.best, source.end, source.notice)
+        positions = cols.get(VISIT, ids)
+        index = TreeIndex({**cols, VISIT: positions}, source.best)
+        row = int(np.flatnonzero(ids == self.node[k])[0])
+        return view, index, row, ids, not self.closed[k]
 
 
-def _frame_in_force(trail: Trail, index: TreeIndex, node: int) -> BestUpdate | None:
+class Harm:
+    """With the oracle's completions: the harmful prunes (counted, the first listed) and the
+    first bound that is not a lower bound, gathered block by block in id order."""
+
+    def __init__(self, matrix: NDArray[Any], shown: int) -> None:
+        self.lengths = _Lengths(matrix)
+        self.shown = shown
+        self.count = 0
+        self.listed: list[dict[str, Any]] = []
+        self.first_over: int | None = None
+
+    def add(
+        self,
+        trail: Trail,
+        index: TreeIndex,
+        ids: NDArray[np.int64],
+        lo: int,
+        hi: int,
+        completion: NDArray[np.float64],
+    ) -> None:
+        """Count in the rows [lo, hi) (`completion`: theirs, in order)."""
+        rows = np.arange(lo, hi, dtype=np.int64)
+        incumbent = index.incumbent_at(rows)
+        bound = bound_values(trail, slice(lo, hi))
+        with np.errstate(invalid="ignore"):
+            harmful = (trail.columns[DECISION][lo:hi] == Decision.PRUNE) & (
+                incumbent - completion > self.lengths.slacks(completion)
+            )
+            over = bound - completion > self.lengths.slacks(completion)
+        hits = np.flatnonzero(harmful)
+        self.count += int(hits.size)
+        for i in hits[: max(self.shown - len(self.listed), 0)]:
+            self.listed.append(
+                {
+                    "id": int(ids[lo + i]),
+                    "path": index.path(lo + int(i)),
+                    "bound": _float(bound[i]),
+                    "completion": float(completion[i]),
+                    "incumbent": float(incumbent[i]),
+                }
+            )
+        first = np.flatnonzero(over)
+        if self.first_over is None and first.size:
+            self.first_over = int(ids[lo + int(first[0])])
+
+    def finish(self, report: WhyReport) -> None:
+        """Put the findings into the report."""
+        report.harmful_count = self.count
+        report.harmful_prunes = self.listed
+        report.first_inadmissible = self.first_over
+
+
+def _frame_in_force(trail: Trail, node: int, position_of: int) -> BestUpdate | None:
     """The incumbent update in force when `node` was visited (None before any)."""
     visit = trail.columns.get(VISIT)
-    position = int(visit[node]) if visit is not None else node
+    position = int(visit[node]) if visit is not None else position_of
     before = [b for b in sorted(trail.best, key=lambda b: b.at) if b.at <= position]
     return before[-1] if before else None
 
 
 class _Judge:
-    """The verdict at one node, and the oracle's findings over the whole tree."""
+    """The verdict at one node, judged on its path rows (`Follow.branch`)."""
 
     def __init__(
         self,
         trail: Trail,
         index: TreeIndex,
         table: CompletionTable | None,
-        completions: NDArray[np.float64] | None,
         matrix: NDArray[Any],
+        *,
+        ids: NDArray[np.int64],
     ) -> None:
         self.trail = trail
         self.index = index
+        #: Each row's trail id (the rows are a branch's path and the record after it).
+        self.ids = ids
         self.table = table
-        self.completions = completions
         self.matrix = matrix
         self.lengths = _Lengths(matrix)
         self.integral = trail.header.instance.integral
@@ -298,8 +451,11 @@ class _Judge:
 
     # -- the node on the branch --------------------------------------------------------
 
-    def verdict(self, node: int, cycle: list[int], length: float) -> WhyReport:
+    def verdict(self, row: int, cycle: list[int], length: float, reaches_end: bool) -> WhyReport:
+        """The verdict at a row (`reaches_end`: its subtree runs to the last record)."""
         trail, index = self.trail, self.index
+        node = row
+        shown = int(self.ids[row])
         path = index.path(node)
         depth = len(path) - 1
         decision = int(trail.columns[DECISION][node])
@@ -312,7 +468,7 @@ class _Judge:
         parts = self._parts(node, values, finish[1], depth == trail.n - 1)
         bound = recorded_bound(trail, node) if depth < trail.n - 1 else None
         base = WhyReport(
-            cut_node=node,
+            cut_node=shown,
             path=path,
             decision=DECISION_NAMES[decision] if decision < len(DECISION_NAMES) else "?",
             bound=bound,
@@ -324,27 +480,28 @@ class _Judge:
         )
         if depth == trail.n - 1:
             base.cut_node = None
-            base.found_at = node
+            base.found_at = shown
             base.explanation = (
-                f"The tour was not cut: the search completed it at node {node} "
+                f"The tour was not cut: the search completed it at node {shown} "
                 f"({self.fmt(length)}, decision {base.decision})."
             )
             return base
         if decision != Decision.PRUNE:
             base.cut_node = None
-            stopped = int(index.end[node]) >= trail.count and (
-                trail.end is None or trail.end.status != "complete"
-            )
+            stopped = reaches_end and (trail.end is None or trail.end.status != "complete")
             nxt = cycle[depth + 1]
             base.explanation = (
                 f"The trail stops (status {trail.end.status if trail.end else 'unfinished'}) "
-                f"inside node {node}'s subtree before the branch reached city {nxt}."
+                f"inside node {shown}'s subtree before the branch reached city {nxt}."
                 if stopped
-                else f"Node {node} was not pruned ({base.decision}), yet the search never "
+                else f"Node {shown} was not pruned ({base.decision}), yet the search never "
                 f"went on to city {nxt}: that child is missing from the trail."
             )
             return base
         return self._pruned(base, node, incumbent, values)
+
+    def _id(self, row: int) -> int:
+        return int(self.ids[row])
 
     def _finish(self, path: list[int], cycle: list[int]) -> tuple[float, list[int]]:
         """The true cost of finishing the branch and the cities of that finish (to city 0)."""
@@ -385,7 +542,8 @@ class _Judge:
         self, base: WhyReport, node: int, incumbent: float, values: dict[str, float | int | None]
     ) -> WhyReport:
         fmt = self.fmt
-        frame = _frame_in_force(self.trail, self.index, node)
+        row, node = node, self._id(node)
+        frame = _frame_in_force(self.trail, row, node)
         wrong_frame = self._frame_wrong(frame)
         completion = base.completion if base.completion is not None else math.nan
         if wrong_frame is not None:
@@ -398,7 +556,7 @@ class _Judge:
             bound = _float(values.get("bound"))
             recomputed_only = bound is not None
         if bound is None:
-            bound = _float(recorded_value(self.trail, PARTIAL, node))
+            bound = _float(recorded_value(self.trail, PARTIAL, row))
         if bound is None:
             bound = float(values.get(PARTIAL) or 0.0)
         if (
@@ -496,34 +654,6 @@ class _Judge:
 
     # -- the whole tree ----------------------------------------------------------------
 
-    def whole_tree(self, report: WhyReport, shown: int) -> None:
-        """Harmful prunes and the first bound that is not a lower bound (oracle only)."""
-        assert self.completions is not None
-        trail, index = self.trail, self.index
-        ids = np.arange(trail.count, dtype=np.int64)
-        completion = self.completions
-        incumbent = index.incumbent_at(ids)
-        bound = bound_values(trail, slice(None))
-        with np.errstate(invalid="ignore"):
-            harmful = (trail.columns[DECISION] == Decision.PRUNE) & (
-                incumbent - completion > self.lengths.slacks(completion)
-            )
-            over = bound - completion > self.lengths.slacks(completion)
-        hits = np.flatnonzero(harmful)
-        report.harmful_count = int(hits.size)
-        report.harmful_prunes = [
-            {
-                "id": int(i),
-                "path": index.path(int(i)),
-                "bound": _float(bound[i]),
-                "completion": float(completion[i]),
-                "incumbent": float(incumbent[i]),
-            }
-            for i in hits[:shown]
-        ]
-        first = np.flatnonzero(over)
-        report.first_inadmissible = int(first[0]) if first.size else None
-
     def along_branch(self, node: int, cycle: list[int], length: float) -> int | None:
         """Without the oracle: the first node on the branch whose bound exceeds the tour's."""
         chain = np.asarray(self.index.ancestors(node), dtype=np.int64)
@@ -531,7 +661,7 @@ class _Judge:
         with np.errstate(invalid="ignore"):
             over = bound - length > self.lengths.slack(length)
         hits = np.flatnonzero(over)
-        return int(chain[hits[0]]) if hits.size else None
+        return self._id(int(chain[hits[0]])) if hits.size else None
 
 
 def _float(value: float | int | None) -> float | None:
@@ -551,10 +681,13 @@ def remainder_instance(trail: Trail, index: TreeIndex, node: int) -> tuple[Insta
     Returns:
         The instance, and for each of its cities the original city number.
     """
-    path = index.path(node)
-    rest = sorted(set(range(trail.n)) - set(path))
+    return path_remainder(trail.header.instance, index.path(node), node)
+
+
+def path_remainder(original: Instance, path: list[int], node: int) -> tuple[Instance, list[int]]:
+    """`remainder_instance` from the node's path (its cities from city 0) alone."""
+    rest = sorted(set(range(original.n)) - set(path))
     cities = [0, path[-1], *rest] if path[-1] != 0 else [0, *rest]
-    original = trail.header.instance
     chosen = np.asarray(cities, dtype=np.intp)
     matrix = np.asarray(original.matrix)[np.ix_(chosen, chosen)]
     coords = original.coords[chosen] if original.coords is not None else None

@@ -16,10 +16,12 @@ from tracer.base.header import (
 )
 from tracer.base.instance import Instance, explicit_instance
 from tracer.base.limits import (
+    DECODED_ALLOWANCE,
     MATRIX_MAX_CITIES,
     MAX_BLOCK_NODES,
     MAX_COLUMNS,
     MAX_COORDINATE,
+    MAX_DECODED_RATIO,
     MAX_EDGE,
     MAX_EXPLICIT_CITIES,
     MAX_FILE_BYTES,
@@ -117,6 +119,7 @@ __all__ = [
     "DECISION_BY_NAME",
     "DECISION_COLUMNS",
     "DECISION_NAMES",
+    "DECODED_ALLOWANCE",
     "DEPTH",
     "DESCENDING",
     "END",
@@ -136,6 +139,7 @@ __all__ = [
     "MAX_BLOCK_NODES",
     "MAX_COLUMNS",
     "MAX_COORDINATE",
+    "MAX_DECODED_RATIO",
     "MAX_EDGE",
     "MAX_EXPLICIT_CITIES",
     "MAX_FILE_BYTES",

@@ -9,13 +9,25 @@ from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, T
 from rich.table import Table
 from rich.text import Text
 
-from tracer.analysis import KINDS, REL_TOL, Finding, RecheckReport, TreeIndex, recheck
-from tracer.base import SOURCE_ID, SOURCE_LINE, Trail
+from tracer.analysis import (
+    KINDS,
+    REL_TOL,
+    Finding,
+    RecheckReport,
+    TreeIndex,
+    in_memory_bytes,
+    recheck,
+    stream_recheck,
+    values_at,
+)
+from tracer.base import SOURCE_ID, SOURCE_LINE, FileKind, Trail, sniff
 from tracer.cli._args import count, id_range
 from tracer.cli._console import emit_json, err, out
-from tracer.trails import open_trail
+from tracer.trails import BlockFile, open_blocks, open_trail
 
 EXIT_WRONG = 1
+#: Default of --memory-mb: trails needing more than this are read block by block.
+DEFAULT_MEMORY_MB = 2048
 #: Every record read checks, but the trail is incomplete (cut short, or no end frame).
 EXIT_INCOMPLETE = 4
 
@@ -72,15 +84,40 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "the incumbent) as wrong decisions",
     )
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    add_memory_option(p)
     p.set_defaults(run=run)
+
+
+def add_memory_option(p: argparse.ArgumentParser) -> None:
+    """The --memory-mb option of the commands that can read a trail block by block."""
+    p.add_argument(
+        "--memory-mb",
+        type=count,
+        default=DEFAULT_MEMORY_MB,
+        metavar="MB",
+        help="read a .trail whole when that takes at most MB megabytes, else block by "
+        f"block in bounded memory, with the same results (default: {DEFAULT_MEMORY_MB})",
+    )
+
+
+def open_sized(path: str, memory_mb: int) -> Trail | BlockFile:
+    """The trace in memory when it fits in `memory_mb`, else the .trail opened block by
+    block (a JSON Lines trace, or a trail with a corrupt frame, is read whole as ever)."""
+    if sniff(path) != FileKind.TRAIL:
+        return open_trail(path)
+    blocks = open_blocks(path)
+    fits = in_memory_bytes(blocks.header, blocks.count) <= memory_mb * (1 << 20)
+    if blocks.corrupt is None and not fits:
+        return blocks
+    blocks.close()
+    return open_trail(path)
 
 
 def run(args: argparse.Namespace) -> int:
     """Check a trail and report."""
-    trail = open_trail(args.trail)
+    trail = open_sized(args.trail, args.memory_mb)
     if trail.notice and not args.json:
         err.print(Text(f"note: {trail.notice}", style="yellow"))
-    index = TreeIndex(trail.columns, trail.best)
     complete = trail.end is not None and trail.notice is None
     start, stop = args.id_range or (0, None)
     progress = Progress(
@@ -98,15 +135,27 @@ def run(args: argparse.Namespace) -> int:
         def show(done: int, total: int) -> None:
             progress.update(task, completed=done, total=total)
 
-        report = recheck(
-            trail,
-            index,
-            start=start,
-            stop=stop,
-            first=args.first,
-            on_progress=show,
-            strict=args.strict,
-        )
+        if isinstance(trail, Trail):
+            report = recheck(
+                trail,
+                TreeIndex(trail.columns, trail.best),
+                start=start,
+                stop=stop,
+                first=args.first,
+                on_progress=show,
+                strict=args.strict,
+            )
+        else:
+            with trail:
+                report = stream_recheck(
+                    trail,
+                    start=start,
+                    stop=stop,
+                    first=args.first,
+                    on_progress=show,
+                    strict=args.strict,
+                )
+    sources = _sources(trail, report)
     if args.json:
         result: dict[str, Any] = {
             "trail": args.trail,
@@ -116,22 +165,32 @@ def run(args: argparse.Namespace) -> int:
         }
         for key in ("first", "first_roots", "first_missed"):
             for finding in result[key]:
-                finding.update(_source(trail, finding["id"]))
+                finding.update(sources.get(finding["id"], {}))
         emit_json(result)
     else:
-        _print_report(args.trail, report, trail)
+        _print_report(args.trail, report, sources)
     if not report.ok:
         return EXIT_WRONG
     return 0 if complete else EXIT_INCOMPLETE
 
 
-def _source(trail: Trail, node: int) -> dict[str, int]:
-    """The id the solver gave an imported node and the line it came from ({} if ours)."""
-    if SOURCE_ID not in trail.columns:
+def _sources(trail: Trail | BlockFile, report: RecheckReport) -> dict[int, dict[str, int]]:
+    """For each listed finding's node of an imported trace, the id its solver gave it and
+    the line it came from (nothing for our own trails)."""
+    ids = {f.id for f in (*report.first, *report.first_roots, *report.first_missed)}
+    if trail.header.column(SOURCE_ID) is None or not ids:
         return {}
+    if isinstance(trail, Trail):
+        cols = trail.columns
+        return {
+            i: {"source_id": int(cols[SOURCE_ID][i]), "source_line": int(cols[SOURCE_LINE][i])}
+            for i in ids
+        }
+    with open_blocks(trail.path) as again:
+        found = values_at(again, sorted(ids), (SOURCE_ID, SOURCE_LINE))
     return {
-        "source_id": int(trail.columns[SOURCE_ID][node]),
-        "source_line": int(trail.columns[SOURCE_LINE][node]),
+        i: {"source_id": int(v[SOURCE_ID]), "source_line": int(v[SOURCE_LINE])}
+        for i, v in found.items()
     }
 
 
@@ -154,7 +213,7 @@ _SHORT = {
 }
 
 
-def _print_report(name: str, report: RecheckReport, trail: Trail) -> None:
+def _print_report(name: str, report: RecheckReport, sources: dict[int, dict[str, int]]) -> None:
     span = f"ids {report.start}..{report.stop - 1}" if report.nodes_checked else "no records"
     if report.ok:
         out.print(
@@ -177,14 +236,14 @@ def _print_report(name: str, report: RecheckReport, trail: Trail) -> None:
         kinds = ", ".join(f"{kind} {n:,}" for kind, n in report.by_kind.items() if n)
         out.print(Text(f"wrong records by kind: {kinds}"))
         if report.first_roots:
-            out.print(_findings_table("root findings", report.first_roots, report, trail))
-            _print_notes(report.first_roots, trail)
+            out.print(_findings_table("root findings", report.first_roots, report))
+            _print_notes(report.first_roots, sources)
         knock = [f for f in report.first if not f.root]
         if knock:
-            out.print(_findings_table("knock-on findings", knock, report, trail))
+            out.print(_findings_table("knock-on findings", knock, report))
         if not report.first_roots and report.first:  # only frames, say; show them plainly
-            out.print(_findings_table("findings", report.first, report, trail))
-            _print_notes(report.first, trail)
+            out.print(_findings_table("findings", report.first, report))
+            _print_notes(report.first, sources)
     if report.missed_prunes and not report.strict:
         out.print(
             Text(
@@ -193,13 +252,11 @@ def _print_report(name: str, report: RecheckReport, trail: Trail) -> None:
                 style="yellow",
             )
         )
-        out.print(_findings_table("first missed prunes", report.first_missed, report, trail))
-        _print_notes(report.first_missed, trail)
+        out.print(_findings_table("first missed prunes", report.first_missed, report))
+        _print_notes(report.first_missed, sources)
 
 
-def _findings_table(
-    title: str, findings: list[Finding], report: RecheckReport, trail: Trail
-) -> Table:
+def _findings_table(title: str, findings: list[Finding], report: RecheckReport) -> Table:
     roots = all(f.root for f in findings)
     table = Table(
         "id",
@@ -228,7 +285,7 @@ def _findings_table(
     return table
 
 
-def _print_notes(findings: list[Finding], trail: Trail) -> None:
+def _print_notes(findings: list[Finding], sources: dict[int, dict[str, int]]) -> None:
     """Under a table: what is wrong in full (with the arithmetic of a decision), the path
     (and for an imported trace the solver's own id and line), and any hint."""
     notes = Table.grid(padding=(0, 1))
@@ -237,7 +294,7 @@ def _print_notes(findings: list[Finding], trail: Trail) -> None:
     for f in findings:
         text = Text(f.detail)
         text.append(f"\npath {' '.join(str(c) for c in f.path)}", style="dim")
-        given = _source(trail, f.id)
+        given = sources.get(f.id)
         if given:
             text.append(
                 f" · solver id {given['source_id']}, line {given['source_line']}", style="dim"

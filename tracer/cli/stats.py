@@ -4,9 +4,7 @@ from __future__ import annotations
 
 import argparse
 import math
-from typing import Any
 
-from numpy.typing import NDArray
 from rich import box
 from rich.table import Column, Table
 from rich.text import Text
@@ -14,17 +12,20 @@ from rich.text import Text
 from tracer.analysis import (
     FINAL_INCUMBENT,
     ORACLE_MAX_CITIES,
+    CompletionTable,
     DepthStats,
     TreeIndex,
     best_completions,
     completion_table,
     depth_stats,
     format_length,
+    stream_stats,
 )
-from tracer.base import DECISION_NAMES, Decision, InputError, Trail
+from tracer.base import DECISION_NAMES, Decision, InputError, Instance, Trail
 from tracer.cli import _plot
 from tracer.cli._console import emit_json, err, out
-from tracer.trails import open_trail
+from tracer.cli.check import add_memory_option, open_sized
+from tracer.trails import BlockFile
 
 #: Improvements listed in the human report (all of them go to --json).
 _SHOWN_IMPROVEMENTS = 12
@@ -62,32 +63,36 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     )
     p.add_argument("--no-chart", action="store_true", help="leave out the chart")
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    add_memory_option(p)
     p.set_defaults(run=run)
 
 
-def _completions(trail: Trail, index: TreeIndex, quiet: bool) -> NDArray[Any] | None:
-    """The oracle's completions, or None when the instance is too large for it."""
-    if trail.n > ORACLE_MAX_CITIES:
+def _table(instance: Instance, quiet: bool) -> CompletionTable | None:
+    """The exact-completion table, or None when the instance is too large for it."""
+    if instance.n > ORACLE_MAX_CITIES:
         return None
     try:
         with err.status("building the exact-completion table", spinner="dots"):
-            table = completion_table(trail.header.instance)
+            return completion_table(instance)
     except InputError as exc:
         if not quiet:
             err.print(Text(f"note: {exc.message}; tightness is against the final incumbent"))
         return None
-    completions: NDArray[Any] = best_completions(trail, index, table)
-    return completions
 
 
 def run(args: argparse.Namespace) -> int:
     """Compute and print a trail's per-depth figures."""
-    trail = open_trail(args.trail)
+    trail = open_sized(args.trail, args.memory_mb)
     if trail.notice and not args.json:
         err.print(Text(f"note: {trail.notice}", style="yellow"))
-    index = TreeIndex(trail.columns, trail.best)
-    completions = None if args.no_oracle else _completions(trail, index, args.json)
-    stats = depth_stats(trail, index, completions)
+    table = None if args.no_oracle else _table(trail.header.instance, args.json)
+    if isinstance(trail, Trail):
+        index = TreeIndex(trail.columns, trail.best)
+        completions = None if table is None else best_completions(trail, index, table)
+        stats = depth_stats(trail, index, completions)
+    else:
+        with trail:
+            stats = stream_stats(trail, table)
     if args.json:
         emit_json({"trail": args.trail, "notice": trail.notice, **stats.to_json()})
         return 0
@@ -125,7 +130,7 @@ def _ratio(value: float) -> str:
     return "—" if math.isnan(value) else f"{value:.3f}"
 
 
-def _print_report(name: str, trail: Trail, stats: DepthStats) -> None:
+def _print_report(name: str, trail: Trail | BlockFile, stats: DepthStats) -> None:
     inst = trail.header.instance
     out.print(
         Text(

@@ -25,15 +25,17 @@ from tracer.analysis import (
     WhyReport,
     completion_table,
     explain,
-    remainder_instance,
+    path_remainder,
+    stream_explain,
 )
 from tracer.base import COMPLETE, INTERRUPTED, Instance, PrunetrailError, Trail
 from tracer.cli._args import count
 from tracer.cli._console import emit_json, err, out
 from tracer.cli._signals import stop_requests
+from tracer.cli.check import add_memory_option, open_sized
 from tracer.formats import format_instance, load_tour
 from tracer.search import SearchSettings, make_start, run_search
-from tracer.trails import open_trail
+from tracer.trails import BlockFile
 
 #: The branch of the reference tour was lost to a wrong number, rule or incumbent.
 EXIT_LOST = 1
@@ -95,18 +97,18 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
         "--harmful", type=count, default=10, metavar="N", help="list N harmful prunes (default 10)"
     )
     p.add_argument("--json", action="store_true", help="print one JSON object")
+    add_memory_option(p)
     p.set_defaults(run=run)
 
 
 def run(args: argparse.Namespace) -> int:
     """Explain a trail against a reference tour and report."""
-    trail = open_trail(args.trail)
+    trail = open_sized(args.trail, args.memory_mb)
     if trail.count == 0:
         raise PrunetrailError(f"{args.trail}: the trail holds no nodes")
     if trail.notice and not args.json:
         err.print(Text(f"note: {trail.notice}", style="yellow"))
     instance = trail.header.instance
-    index = TreeIndex(trail.columns, trail.best)
     table = _table(instance, args.oracle_memory, quiet=args.json)
     if args.tour is not None:
         tour: list[int] | None = [int(c) for c in load_tour(args.tour, instance)]
@@ -114,10 +116,15 @@ def run(args: argparse.Namespace) -> int:
         tour = _clean_search(instance, quiet=args.json)
     else:
         tour = None
-    report = explain(trail, index, tour=tour, table=table, harmful_shown=args.harmful)
+    if isinstance(trail, Trail):
+        index = TreeIndex(trail.columns, trail.best)
+        report = explain(trail, index, tour=tour, table=table, harmful_shown=args.harmful)
+    else:
+        with trail:
+            report = stream_explain(trail, tour=tour, table=table, harmful_shown=args.harmful)
     exported = None
     if args.export_remainder:
-        exported = _export(trail, index, report, Path(args.export_remainder))
+        exported = _export(instance, report, Path(args.export_remainder))
     if args.json:
         emit_json(
             {
@@ -169,9 +176,9 @@ def _clean_search(instance: Instance, *, quiet: bool) -> list[int]:
     return list(result.tour)
 
 
-def _export(trail: Trail, index: TreeIndex, report: WhyReport, path: Path) -> str:
+def _export(instance: Instance, report: WhyReport, path: Path) -> str:
     """Write the sub-problem left at the reported node as TSPLIB text; returns the path."""
-    sub, _ = remainder_instance(trail, index, report.node)
+    sub, _ = path_remainder(instance, report.path, report.node)
     try:
         path.write_text(format_instance(sub), encoding="utf-8")
     except OSError as exc:
@@ -191,7 +198,7 @@ def _shown(value: float | None, integral: bool) -> str:
 
 def _print(
     name: str,
-    trail: Trail,
+    trail: Trail | BlockFile,
     report: WhyReport,
     table: CompletionTable | None,
     exported: str | None,

@@ -271,13 +271,13 @@ class BlockScanner:
             if frames.header is not None and self.index is None:
                 self.index = BlockIndex(str(self.path), frames.header)
                 self.index.header_end = frames.header_end
-            if self.index is not None and corrupt is None:
-                corrupt = self._summarise()
+            if self.index is not None:
+                corrupt = self._summarise() or corrupt  # a bad block comes before the frame
             if len(data) < want:  # the file's end, for now
                 break
         frames.finish()  # node frames gathered so far become a block now
-        if self.index is not None and corrupt is None:
-            corrupt = self._summarise()
+        if self.index is not None:
+            corrupt = self._summarise() or corrupt
         if self.index is None:
             if corrupt is not None:
                 raise corrupt

@@ -807,7 +807,10 @@ def _parse(path: Path) -> _Parsed:
 
 
 class _Tree:
-    """Parents, depths and pre-order ids of the parsed nodes (all indexed by visit position)."""
+    """Depths and pre-order ids of the parsed nodes (all indexed by visit position), every
+    relation between lines checked: by one walk for a trace already in pre-order with ids
+    that grow (`_jsonl_stream`), else one depth level at a time (which also names any
+    problem the walk stopped at)."""
 
     def __init__(self, parsed: _Parsed) -> None:
         self.path = parsed.path
@@ -816,7 +819,8 @@ class _Tree:
         self.count = len(nodes)
         self.line = nodes.view("line")
         self.ident = nodes.view("ident")
-        self.city = nodes.view("city").astype(np.int64)
+        city = nodes.view("city")
+        self.city = city.astype(np.int64)
         self.by_path = np.zeros(self.count, dtype=np.bool_)
         self.path_node = np.frombuffer(nodes.path_node, dtype=np.int64)
         self.path_start = np.frombuffer(nodes.path_start, dtype=np.int64)
@@ -825,6 +829,12 @@ class _Tree:
         if self.count < 2 or bool((self.ident[1:] > self.ident[:-1]).all()):  # often so
             self.id_order = np.arange(self.count)
             self.sorted_ids = self.ident
+            if not len(self.path_node) and self.n <= MAX_WALK_CITIES:
+                # in depth-first pre-order? Then one walk gives depths and every check
+                depth, why = walk(WalkState(self.n), self.ident, nodes.view("parent_id"), city)
+                if why == WALKED:
+                    self.depth, self.pre = depth, np.arange(self.count)
+                    return
         else:
             self.id_order = np.argsort(self.ident, kind="stable")
             self.sorted_ids = self.ident[self.id_order]

@@ -104,6 +104,8 @@ class BlockFile:
         self._scanner = scanner
         self._unused_index = unused_index
         self._cache = _Cache(cache_bytes)
+        self._last: tuple[int, dict[str, bytes]] | None = None  # the last block's payload
+        self._orphan_free: dict[int, bool] = {}
         self._lock = threading.RLock()
         self._handle: BinaryIO = open(index.path, "rb")  # noqa: SIM115 (closed in close())
         self._sync()
@@ -253,9 +255,22 @@ class BlockFile:
             if found is None:
                 col = self.header.column(name)
                 assert col is not None
-                found = self._decode(block, col, self._payload(block))
+                if self._last is None or self._last[0] != block:
+                    self._last = (block, self._payload(block))
+                found = self._decode(block, col, self._last[1])
                 self._cache.put((block, name), found)
             return found
+
+    def _orphan(self, node: int) -> bool:
+        """Whether `node` is an orphan; blocks where no depth jumps down are known free."""
+        block = self._block(node)
+        free = self._orphan_free.get(block)
+        if free is None:
+            depth = self._cached(block, DEPTH).astype(np.int64)
+            top = int(self.index.values("entry_top")[block])
+            free = int(depth[0]) <= top and (len(depth) < 2 or int(np.diff(depth).max()) <= 1)
+            self._orphan_free[block] = free
+        return not free and self.tree.parent(node) == ORPHAN
 
     def _payload(self, block: int) -> dict[str, bytes]:
         """A block's compressed columns, re-read from its byte range and re-checked."""
@@ -350,7 +365,7 @@ class BlockTree:
 
     def subtree_end(self, node: int) -> int:
         """One past `node`'s subtree: the first later record at its depth or above."""
-        if self.parent(node) == ORPHAN:
+        if self._file._orphan(node):
             return node + 1
         d = self.depth(node)
         block = self._file._block(node)

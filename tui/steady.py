@@ -1,17 +1,29 @@
-"""The main screen's footer, rebuilt only when the keys it shows change.
+"""The main screen and its footer, made to repaint only what changed.
 
-Textual's footer recomposes (a widget per key) whenever the screen's bindings are updated,
-which happens on every focus move. This one skips the rebuild when the keys shown are the
-same, and holds still while a prompt line is open (the prompt names its own keys), so
-opening and closing a prompt costs no footer rebuild.
+Textual repaints the whole screen when focus moves, and its footer recomposes (a widget per
+key) whenever the screen's bindings are updated, which is also on every focus move. Moving
+focus into and out of a prompt line should cost neither: `SteadyScreen` repaints only the
+widgets whose focus styles change, and `SteadyFooter` skips the rebuild when the keys shown
+are the same, and holds still while a prompt line is open (the prompt names its own keys).
 """
 
 from __future__ import annotations
 
 from typing import Any
 
+from textual.reactive import Reactive
 from textual.screen import Screen
+from textual.widget import Widget
 from textual.widgets import Footer
+
+
+class SteadyScreen(Screen[None]):
+    """A screen that does not repaint everything when focus moves.
+
+    The widgets losing and gaining focus restyle (and so repaint) themselves.
+    """
+
+    focused: Reactive[Widget | None] = Reactive(None, repaint=False)
 
 
 def shown_keys(screen: Screen[Any]) -> tuple[tuple[str, str, str, bool], ...]:
