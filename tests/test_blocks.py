@@ -367,7 +367,9 @@ def test_flipped_bytes_give_answers_or_clear_errors(
     """A byte flipped anywhere (frames or index) is read, or refused as corrupt: never a crash."""
     from tracer.base.errors import InputError
 
-    data = trails["tiny-zstd"].read_bytes()
+    full = read_trail(trails["burma14"])
+    small = Trail("", full.header, {k: v[:3000] for k, v in full.columns.items()}, [], None)
+    data = rewrite(small, tmp_path / "small.trail", 61).read_bytes()
     rng = np.random.default_rng(5)
     spots = [*rng.integers(0, len(data), 25).tolist(), *range(len(data) - 40, len(data), 3)]
     for spot in spots:
@@ -384,3 +386,23 @@ def test_flipped_bytes_give_answers_or_clear_errors(
                 sum(b.count for b in lazy.blocks())
         except InputError:
             pass  # refused, naming where: CorruptTrailError is one
+
+
+@pytest.mark.parametrize("kind", ["fault", "tiny-zstd"])
+def test_streaming_recheck_over_the_file_equals_in_memory(
+    trails: dict[str, Path], kind: str
+) -> None:
+    """The streaming re-check reads a `BlockFile` as it reads the trail in memory."""
+    import json
+
+    from tracer.analysis.streaming import stream_recheck
+    from tracer.base.trail import memory_blocks
+
+    trail = read_trail(trails[kind])
+    with open_blocks(trails[kind], cache_bytes=1 << 12) as lazy:
+        streamed = stream_recheck(lazy)
+        assert lazy.cache_used == 0  # blocks() decodes afresh, past the cache
+    whole = stream_recheck(memory_blocks(trail))
+    assert json.dumps(streamed.to_json()) == json.dumps(whole.to_json())
+    assert np.array_equal(streamed.wrong_ids, whole.wrong_ids)
+    assert streamed.wrong > 0 or kind != "fault"  # the planted fault is found both ways

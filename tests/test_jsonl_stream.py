@@ -10,8 +10,11 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 from tests.foreign_traces import jsonl_lines, solve_to_trail
+from tests.test_jsonl_import import search_lines, searches, write_lines
 from tracer.base import InputError
 from tracer.cli import main
 from tracer.formats import load_instance
@@ -149,3 +152,58 @@ def test_whole_file_walk_equals_the_level_by_level_tree(
     for name, column in walked.columns.items():
         assert column.tobytes() == levels.columns[name].tobytes(), name
     assert walked.best == levels.best and walked.end == levels.end
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=list(HealthCheck))
+@given(searches(), st.booleans(), st.booleans())
+def test_any_small_search_streams_the_same_or_not_at_all(
+    tmp_path_factory: pytest.TempPathFactory,
+    search: tuple[int, list[list[int]], list[int]],
+    depth_first: bool,
+    growing: bool,
+) -> None:
+    """A random tree in a random parent-first order or in depth-first pre-order, with random
+    or growing ids and a best line at each complete tour: the streamed import writes the
+    whole-file import's bytes, or nothing; a pre-order trace with growing ids streams."""
+    n, paths, ids = search
+    if depth_first:
+        paths = sorted(paths)  # lexicographic order of paths is a depth-first pre-order
+    if growing:
+        ids = sorted(ids)
+    lines: list[Any] = []
+    for line in search_lines(n, paths, ids, "parent"):
+        lines.append(line)
+        if line.get("decision") == "tour" and len(lines) % 2:
+            tour = [*next(p for p, i in zip(paths, ids, strict=True) if i == line["id"])]
+            lines.append({"kind": "best", "id": line["id"], "length": n, "tour": tour})
+    folder = tmp_path_factory.mktemp("any")
+    src = write_lines(folder / "s.jsonl", lines)
+    summary = jsonl.stream_jsonl(src, folder / "streamed.trail", 1 << 16)
+    jsonl.import_jsonl(src, folder / "whole.trail")
+    if summary is None:
+        assert not (depth_first and growing)
+        return
+    assert (folder / "streamed.trail").read_bytes() == (folder / "whole.trail").read_bytes()
+
+
+def test_interrupted_streamed_import_leaves_the_old_trail(
+    trace_lines: list[str], tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """Ctrl-C while the second pass writes: the earlier trail is untouched, no part file."""
+    src = write(tmp_path / "t.jsonl", trace_lines)
+    out = tmp_path / "run.trail"
+    out.write_bytes(b"previous contents")
+    calls = []
+
+    def interrupted(self: Any, nodes: Any) -> None:
+        calls.append(nodes.count)
+        if len(calls) > 1:
+            raise KeyboardInterrupt
+        real(self, nodes)
+
+    real = jsonl._StreamWrite.__call__
+    monkeypatch.setattr(jsonl._StreamWrite, "__call__", interrupted)
+    with pytest.raises(KeyboardInterrupt):
+        jsonl.stream_jsonl(src, out, 1 << 16)
+    assert out.read_bytes() == b"previous contents"
+    assert list(tmp_path.glob("*.part")) == []

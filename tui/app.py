@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import threading
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass
 from functools import partial
 from pathlib import Path
 from typing import Any, ClassVar
@@ -44,12 +43,13 @@ from tracer.analysis import (
     recheck,
 )
 from tracer.base import InputError, PrunetrailError, Trail
-from tracer.trails import CorruptTrailError, Follower, follow_trail, open_trail
+from tracer.trails import Follower
 from tui.bookmarks import Bookmark, clean_note, load_bookmarks, save_bookmarks, sidecar_path
 from tui.bound_panel import BoundPanel
 from tui.city_map import CityMap
 from tui.dialogs import BookmarksScreen, HelpScreen, NoteDialog, StopDialog
 from tui.keys import keymap_path, load_keymap
+from tui.loading import Loading, start_loading
 from tui.model import ViewerModel
 from tui.node_list import NodeList, NodeListHeader
 from tui.outline import BranchOutline
@@ -63,44 +63,6 @@ SPEEDS = (1, 2, 5, 10, 20, 50, 100)
 ORACLE_MAX_NODES = 1 << 22
 #: Seconds between polls of a live trail.
 FOLLOW_INTERVAL = 0.5
-
-
-@dataclass(frozen=True)
-class Opened:
-    """A trail as the viewer opens it: what was readable, and what to tell the user."""
-
-    trail: Trail
-    notice: str | None
-    follower: Follower | None
-
-
-def open_for_viewing(path: str | Path, *, follow: bool = True) -> Opened:
-    """Open a trail for the viewer: a cut or corrupt file opens with what was readable.
-
-    A trail (or JSON Lines trace) without an end is followed live (when `follow`).
-
-    Raises:
-        InputError: nothing readable (not a trail, or cut before its header).
-    """
-    p = Path(path)
-    try:
-        trail = open_trail(p)
-    except CorruptTrailError as exc:
-        if exc.partial is None:
-            raise
-        return Opened(exc.partial, f"{exc}; showing the {exc.partial.count} nodes before it", None)
-    if trail.end is None and follow:
-        follower = follow_trail(p)
-        try:
-            follower.poll()
-        except InputError as exc:
-            follower.close()
-            return Opened(trail, str(exc), None)
-        live = follower.trail
-        if live is not None:
-            return Opened(live, trail.notice, follower)
-        follower.close()
-    return Opened(trail, trail.notice, None)
 
 
 # -- messages from workers ---------------------------------------------------------------
@@ -172,7 +134,8 @@ class PrunetrailApp(App[None]):
     """The trail viewer.
 
     Args:
-        path_or_trail: a trail or JSON Lines file, or a `Trail` already read.
+        path_or_trail: a trail or JSON Lines file, a `Trail` already read, or one being
+            opened (`tui.loading.start_loading`, started before the viewer's imports).
         at: node id to start on.
         prefix: path prefix (e.g. "0 5 2") to filter to and start at.
         filter: filter text to apply at start.
@@ -219,7 +182,7 @@ class PrunetrailApp(App[None]):
 
     def __init__(
         self,
-        path_or_trail: str | Path | Trail,
+        path_or_trail: str | Path | Trail | Loading,
         at: int | None = None,
         prefix: str | None = None,
         filter: str | None = None,
@@ -230,13 +193,20 @@ class PrunetrailApp(App[None]):
         super().__init__()
         self._follower: Follower | None = None
         self._notice: str | None = None
+        index: TreeIndex | None = None
         if isinstance(path_or_trail, Trail):
             trail = path_or_trail
             self._notice = trail.notice
         else:
-            opened = open_for_viewing(path_or_trail, follow=follow)
+            loading = (
+                path_or_trail
+                if isinstance(path_or_trail, Loading)
+                else start_loading(path_or_trail, follow=follow)
+            )
+            opened = loading.result()
             trail, self._notice, self._follower = opened.trail, opened.notice, opened.follower
-        self.model = ViewerModel(trail, live=self._follower is not None)
+            index = opened.index
+        self.model = ViewerModel(trail, index, live=self._follower is not None)
         self._background = background
         self._stop_follow = threading.Event()
         self.stops = StopCondition(prune=True)

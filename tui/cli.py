@@ -24,6 +24,7 @@ from tracer.cli import run_command
 from tracer.cli._args import count, path_prefix
 from tracer.cli._console import out
 from tui import demo, serve
+from tui.loading import start_loading
 
 if TYPE_CHECKING:
     from tui.app import PrunetrailApp
@@ -123,13 +124,13 @@ def run_view(args: argparse.Namespace) -> int:
     """Open the viewer, or write one headless screenshot."""
     if args.serve:
         return serve.serve_view(args)
-    from tui.app import PrunetrailApp  # the viewer loads only for this command
+    shot = args.screenshot
+    # The trail is read while the viewer's libraries load (they load only for this command).
+    loading = start_loading(args.trail, follow=shot is None)
+    from tui.app import PrunetrailApp
 
     prefix = " ".join(map(str, args.prefix)) if args.prefix else None
-    shot = args.screenshot
-    app = PrunetrailApp(
-        args.trail, at=args.at, prefix=prefix, filter=args.filter, follow=shot is None
-    )
+    app = PrunetrailApp(loading, at=args.at, prefix=prefix, filter=args.filter)
     if shot is None:
         app.run()
         return 0

@@ -34,9 +34,11 @@ class PromptBar(Horizontal):
     DEFAULT_CSS = """
     PromptBar { height: 1; background: $panel; padding: 0 1; display: none; }
     PromptBar > Label { width: auto; color: $accent; text-style: bold; padding-right: 1; }
-    PromptBar > Input { width: 1fr; height: 1; border: none; padding: 0 1; }
+    PromptBar > Input, PromptBar > Input:focus {
+        width: 1fr; height: 1; border: none; padding: 0 1; background: $boost;
+    }
     PromptBar > Static { width: auto; max-width: 70; color: $error; padding-left: 1; }
-    PromptBar > .prompt-keys { color: $text-muted; }
+    PromptBar > .prompt-keys { color: $text-muted; padding-left: 2; }
     """
 
     BINDINGS: ClassVar[list[BindingType]] = [

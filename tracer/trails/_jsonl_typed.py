@@ -1,8 +1,9 @@
-"""The fast path of the JSON Lines importer: each line decoded by msgspec into a typed
+"""The typed path of the JSON Lines importer: each line decoded by msgspec into a typed
 Struct, and a batch of node lines checked with a few C-level passes instead of a check per
-field in Python.
+field in Python. It reads every line the compiled lane (`_jsonl_scan.py`) leaves, and is
+the reference that lane is tested against.
 
-The fast path only ever accepts what the field-by-field checks in `jsonl.py` accept: any
+The typed path only ever accepts what the field-by-field checks in `jsonl.py` accept: any
 batch it is unsure of (a line that does not decode into its Struct, a value out of range, a
 node given by `path`, a second header) goes back to those checks, which then name the line
 and the field at fault. So the messages are the same whichever path reads a file.

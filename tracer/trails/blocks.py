@@ -27,9 +27,11 @@ from tracer.base import (
     CODECS,
     DECISION,
     DECISION_NAMES,
+    DECODED_ALLOWANCE,
     DEPTH,
     END,
     MAX_BLOCK_NODES,
+    MAX_DECODED_RATIO,
     MAX_FRAME_BYTES,
     MAX_TRAIL_NODES,
     ORPHAN,
@@ -40,7 +42,6 @@ from tracer.base import (
     TrailHeader,
     tree_shape,
 )
-from tracer.base.limits import DECODED_ALLOWANCE, MAX_DECODED_RATIO
 from tracer.trails.reader import (
     _READ_SIZE,
     CorruptTrailError,
@@ -511,20 +512,26 @@ def _index_best(
     if not isinstance(raw, bytes) or len(raw) % 8 or len(raw) // 8 > MAX_INDEX_BEST:
         return "'best' is not a list of frame offsets"
     offsets = np.frombuffer(raw, dtype="<i8")
+    if len(offsets) > 1 and not (np.diff(offsets) > 0).all():
+        return "its best frame offsets are not in file order"
     stops = table[:, _F["stop"]]
     starts = table[:, _F["offset"]]
+    covered = frames.header_end + int((stops - starts).sum())
     for offset in offsets.tolist():
         inside = int(np.searchsorted(starts, offset, side="right")) - 1
         if not frames.header_end <= offset < at or (inside >= 0 and offset < stops[inside]):
             return f"a best frame offset {offset} is outside the gaps between blocks"
         handle.seek(offset)
         try:
-            frame, _ = _one_frame(handle.read(min(_BEST_READ, at - offset)))
+            frame, used = _one_frame(handle.read(min(_BEST_READ, at - offset)))
             if not isinstance(frame, dict) or frame.get("kind") != BEST:
                 return f"no best frame at byte {offset}"
+            covered += used
             frames.best.append(frames._best(frame, offset))
         except (msgpack.UnpackException, ValueError) as exc:
             return f"no best frame at byte {offset} ({exc})"
         except CorruptTrailError as exc:
             return str(exc)
+    if covered != at:
+        return "its blocks and best frames do not account for every byte before the end frame"
     return sorted(frames.best, key=lambda b: b.at)

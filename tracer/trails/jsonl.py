@@ -1429,9 +1429,9 @@ def stream_jsonl(
     trace needs the whole-file import instead: not a regular file (a pipe is read once), not
     in pre-order (or ids that do not grow), paths instead of parent ids, more than
     `MAX_WALK_CITIES` cities, a best line naming a node more than a chunk back, or a problem
-    to report (the whole-file import reports it as usual); all found by the first pass,
-    before anything is written. A file that changed between the passes also gives None,
-    after a partial trail that the caller's whole-file import then replaces.
+    to report (the whole-file import reports it as usual), or a file that changed between
+    the passes. The trail is written beside `dst` and moved there only once complete, so an
+    interrupted import leaves any earlier `dst` as it was.
 
     Raises:
         InputError: a line that is wrong in itself, as `import_jsonl` names it.
@@ -1457,8 +1457,10 @@ def stream_jsonl(
     header = TrailHeader(instance=parsed.instance, solver=parsed.solver, columns=layout)
     end = _end_info(parsed.status, len(first.parser.nodes), check.counts, best)
     second = _Reading(p)
+    target = Path(dst)
+    part = target.with_name(target.name + ".part")  # `dst` is replaced only when complete
     try:
-        with TrailWriter(dst, header) as writer, open(p, "rb") as handle, _collector_paused():
+        with TrailWriter(part, header) as writer, open(p, "rb") as handle, _collector_paused():
             write = _StreamWrite(second, writer, header)
             second.run(handle, chunk_bytes, drain=write)
             write.flush()
@@ -1467,9 +1469,12 @@ def stream_jsonl(
             after = p.stat()
             same = (after.st_size, after.st_mtime_ns) == (before.st_size, before.st_mtime_ns)
             if not same or len(second.parser.nodes) != len(first.parser.nodes):
-                return None  # the caller imports the whole file, replacing what was written
+                return None  # changed under us: the caller imports the whole file
             if end is not None:
                 writer.close(end)
+        os.replace(part, target)
     except _WholeFileError:
         return None
+    finally:
+        part.unlink(missing_ok=True)  # gone already after a replace
     return ImportSummary(len(first.parser.nodes), header, end, parsed.notice)

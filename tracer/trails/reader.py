@@ -30,6 +30,7 @@ from tracer.base import (
     CODECS,
     DECISION,
     DECISION_NAMES,
+    DECODED_ALLOWANCE,
     DEPTH,
     END,
     HEADER,
@@ -38,6 +39,7 @@ from tracer.base import (
     LINK_OUT,
     LINK_OUT_CITY,
     MAX_BLOCK_NODES,
+    MAX_DECODED_RATIO,
     MAX_FRAME_BYTES,
     MAX_LIST_ITEMS,
     MAX_MAP_ITEMS,
@@ -68,7 +70,6 @@ from tracer.base import (
     recorded_length,
     show_value,
 )
-from tracer.base.limits import DECODED_ALLOWANCE, MAX_DECODED_RATIO
 
 _READ_SIZE = 1 << 20
 _NODE_FRAME_BATCH = 1 << 16

@@ -94,7 +94,9 @@ class TrailWriter:
         self._closed = False
         self._error: BaseException | None = None
         self._written = 0  # bytes in the file so far
-        self._index: list[tuple[int, ...]] = []  # one row of INDEX_FIELDS per block
+        # One row of INDEX_FIELDS per block (8 bytes a field: 104 bytes a block).
+        self._index = np.zeros((64, len(INDEX_FIELDS)), dtype="<i8")
+        self._blocks = 0
         self._best_offsets: list[int] = []
         self._top = 0  # the ancestor stack's depth after the blocks written so far
         self._file: BinaryIO = open(self.path, "wb")  # noqa: SIM115 (closed in close())
@@ -186,19 +188,20 @@ class TrailWriter:
         self._emit(self._pack(first, block))
         summary = block_summary(block[DEPTH], block[DECISION], self._top)
         self._top = summary.exit_top
-        self._index.append(
-            (
-                offset,
-                self._written,
-                first,
-                len(block[DEPTH]),
-                CODECS.index(self.codec),
-                summary.min_depth,
-                summary.max_depth,
-                summary.entry_top,
-                *summary.decisions,
-            )
+        if self._blocks == len(self._index):
+            self._index = np.concatenate((self._index, np.zeros_like(self._index)))
+        self._index[self._blocks] = (
+            offset,
+            self._written,
+            first,
+            len(block[DEPTH]),
+            CODECS.index(self.codec),
+            summary.min_depth,
+            summary.max_depth,
+            summary.entry_top,
+            *summary.decisions,
         )
+        self._blocks += 1
 
     def _end_frame(self, end: EndInfo) -> bytes:
         """The end frame; with the block index and, last, its own offset when they fit."""
@@ -213,11 +216,11 @@ class TrailWriter:
             "tour": None if end.tour is None else [int(c) for c in end.tour],
             **{k: v for k, v in end.extra.items() if k not in (INDEX_KEY, INDEX_AT_KEY)},
         }
-        if len(self._index) > MAX_INDEX_BLOCKS or len(self._best_offsets) > MAX_INDEX_BEST:
+        if self._blocks > MAX_INDEX_BLOCKS or len(self._best_offsets) > MAX_INDEX_BEST:
             return bytes(msgpack.packb(frame, use_bin_type=True))
         frame[INDEX_KEY] = {
             "fields": list(INDEX_FIELDS),
-            "blocks": np.array(self._index, dtype="<i8").reshape(-1, len(INDEX_FIELDS)).tobytes(),
+            "blocks": self._index[: self._blocks].tobytes(),
             BEST: np.array(self._best_offsets, dtype="<i8").tobytes(),
         }
         packer = msgpack.Packer(use_bin_type=True)

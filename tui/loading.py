@@ -1,0 +1,124 @@
+"""Opening a trail for the viewer, started before the viewer's own libraries load.
+
+`start_loading` reads the trail and builds its tree index in a thread, so the reading (much
+of it in compiled code that lets other threads run) overlaps the import of Textual and the
+analyses; the viewer takes the result when it builds its model. This module imports only
+the trail layer, so a caller can start the reading first and import the viewer after. It is
+the one place the viewer's loading path goes through (a block-indexed lazy trail can take
+its place here).
+"""
+
+from __future__ import annotations
+
+import threading
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from tracer.base import InputError, Trail
+from tracer.trails import CorruptTrailError, Follower, follow_trail, open_trail
+
+if TYPE_CHECKING:
+    from tracer.analysis import TreeIndex
+
+
+@dataclass(frozen=True)
+class Opened:
+    """A trail as the viewer opens it: what was readable, its index, what to tell the user."""
+
+    trail: Trail
+    notice: str | None
+    follower: Follower | None
+    index: TreeIndex | None = None
+
+
+def open_for_viewing(path: str | Path, *, follow: bool = True) -> Opened:
+    """Open a trail for the viewer: a cut or corrupt file opens with what was readable.
+
+    A trail (or JSON Lines trace) without an end is followed live (when `follow`).
+
+    Raises:
+        InputError: nothing readable (not a trail, or cut before its header).
+    """
+    p = Path(path)
+    try:
+        trail = open_trail(p)
+    except CorruptTrailError as exc:
+        if exc.partial is None:
+            raise
+        return Opened(exc.partial, f"{exc}; showing the {exc.partial.count} nodes before it", None)
+    if trail.end is None and follow:
+        follower = follow_trail(p)
+        try:
+            follower.poll()
+        except InputError as exc:
+            follower.close()
+            return Opened(trail, str(exc), None)
+        live = follower.trail
+        if live is not None:
+            return Opened(live, trail.notice, follower)
+        follower.close()
+    return Opened(trail, trail.notice, None)
+
+
+class Loading:
+    """A trail being opened (and indexed) in a background thread; `result` waits for it.
+
+    Args:
+        path: the trail or JSON Lines file.
+        follow: follow a trail without an end frame as it grows.
+    """
+
+    def __init__(self, path: str | Path, *, follow: bool = True) -> None:
+        self.path = path
+        self.follow = follow
+        self._opened: Opened | None = None
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._run, name="prunetrail-open", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        warm = threading.Thread(target=_load_index_code, name="prunetrail-warm", daemon=True)
+        warm.start()
+        try:
+            opened = open_for_viewing(self.path, follow=self.follow)
+            warm.join()
+            from tracer.analysis import TreeIndex
+
+            trail = opened.trail
+            index = TreeIndex(trail.columns, trail.best)
+            self._opened = Opened(trail, opened.notice, opened.follower, index)
+        except BaseException as exc:  # handed to the caller of `result`
+            self._error = exc
+
+    def result(self) -> Opened:
+        """The opened trail with its index (waits for the thread).
+
+        Raises:
+            InputError: as `open_for_viewing`.
+        """
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+        assert self._opened is not None
+        return self._opened
+
+
+def start_loading(path: str | Path, *, follow: bool = True) -> Loading:
+    """Start opening `path` for the viewer in the background."""
+    return Loading(path, follow=follow)
+
+
+def _load_index_code() -> None:
+    """Import the analyses and run the tree index once on one node.
+
+    The compiled tree pass loads its cached machine code on its first call; doing that
+    while the file is read takes it off the path to the first screen.
+    """
+    import numpy as np
+
+    from tracer.analysis import TreeIndex
+    from tracer.base import CITY, DECISION, DEPTH
+
+    one: dict[str, Any] = {name: np.zeros(1, dtype=np.uint8) for name in (CITY, DEPTH, DECISION)}
+    TreeIndex(one, [])
