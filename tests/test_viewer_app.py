@@ -29,16 +29,18 @@ from tracer.analysis import (
     parse_filter,
     parse_stops,
 )
-from tracer.base import DECISION, DECISION_NAMES, LINK_IN, LINK_OUT, PARTIAL, TREE
+from tracer.base import DECISION, DECISION_NAMES, LINK_IN, LINK_OUT, PARTIAL, TREE, InputError
 from tracer.cli import main as tracer_main
 from tracer.trails import TrailWriter, open_trail
 from tui.app import PrunetrailApp, RecheckProgress
 from tui.bookmarks import sidecar_path
 from tui.cli import main as viewer_main
 from tui.dialogs import BookmarksScreen, HelpScreen, StopDialog
+from tui.loading import start_loading
 from tui.node_list import NodeList
 from tui.prompt_bar import FilterBar, GoToBar
 from tui.stats_screen import StatsScreen
+from tui.steady import SteadyFooter
 from tui.why_screen import WhyScreen
 
 SIZE = (150, 44)
@@ -586,3 +588,42 @@ async def test_results_arriving_under_a_dialog_update_the_main_screen(faulty):
         assert isinstance(app.screen, StopDialog)
         await pilot.press("escape")
         assert "3 wrong" in _plain_top(app)
+
+
+@pytest.mark.asyncio
+async def test_prompt_lines_keep_the_footer_and_focus(faulty):
+    """Opening and closing a prompt line rebuilds no footer key and gives focus back."""
+    app = _app(faulty)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        footer = app.query_one(SteadyFooter)
+        keys_before = list(footer.children)
+        assert keys_before, "the footer shows keys"
+        for key in ("f", "i"):
+            await pilot.press(key)
+            assert isinstance(app.focused, Input)
+            await pilot.press("escape")
+            await pilot.pause()
+            assert app.focused is app.query_one(NodeList)
+            assert list(footer.children) == keys_before
+        await pilot.press("f")
+        app.query_one("#filter", Input).value = "is prune"
+        await pilot.press("enter")
+        await pilot.pause()
+        assert app.model.filter.describe() == "decision prune"
+        assert app.model.rows.ranks is not None and app.model.rows.ids_array is None
+        assert list(footer.children) == keys_before
+
+
+def test_loading_in_the_background_opens_the_same_trail(faulty, tmp_path):
+    """`start_loading` hands back the trail and index a plain read gives; a bad file raises."""
+    opened = start_loading(faulty).result()
+    plain = open_trail(faulty)
+    assert opened.trail.count == plain.count
+    for name, column in plain.columns.items():
+        assert np.array_equal(opened.trail.columns[name], column), name
+    assert opened.index is not None and opened.index.count == plain.count
+    assert opened.index.parent.tolist() == TreeIndex(plain.columns, plain.best).parent.tolist()
+    missing = start_loading(tmp_path / "none.trail")
+    with pytest.raises(InputError):
+        missing.result()

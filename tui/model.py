@@ -17,6 +17,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from tracer.analysis import (
+    DecisionRanks,
     NodeFilter,
     StopCondition,
     TreeIndex,
@@ -25,7 +26,6 @@ from tracer.analysis import (
     next_match,
     parse_filter,
 )
-from tracer.analysis.tree_index import DecisionRanks
 from tracer.base import COMPLETE, DECISION_NAMES, Trail, bound_values
 
 #: Status shown for a trail without an end frame that is being followed.

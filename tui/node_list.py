@@ -120,8 +120,9 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
         self._cache.clear()
         self.refresh()
 
-    # Focus moving in or out changes nothing drawn here (the cursor row looks the same), so
-    # the whole-list repaints Textual makes on focus and blur are skipped.
+    # Focus moving in or out changes nothing drawn here (the cursor row looks the same and no
+    # style names :focus), so the whole-list repaints Textual makes on focus and blur are
+    # skipped.
     def focus(self, scroll_visible: bool = True) -> Self:
         """Take the focus (without repainting the list)."""
 
@@ -132,12 +133,18 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
         self.app.call_later(take)
         return self
 
+    def watch_has_focus(self, has_focus: bool) -> None:
+        """No style here depends on focus: skip the restyle (it repaints the scrollbars, and
+        with them every line of the list)."""
+
     def _on_focus(self, event: Focus) -> None:
+        event.prevent_default()
         self.has_focus = True
         if self.parent is not None:
             self.parent.post_message(DescendantFocus(self))
 
     def _on_blur(self, event: Blur) -> None:
+        event.prevent_default()
         self.has_focus = False
         if self.parent is not None:
             self.parent.post_message(DescendantBlur(self))

@@ -121,9 +121,9 @@ def main() -> list[dict[str, str]]:
             summary += [
                 _row("engine, cutoff 0, unrecorded", f"{nodes / plain / 1e6:.2f} M nodes/s", "≥ 4"),
                 _row(
-                    "engine rate / plain compiled baseline's",
+                    "engine rate ÷ a plain compiled baseline's, same tree",
                     f"{base / plain:.2f} ({nodes / base / 1e6:.2f} M nodes/s plain)",
-                    "",
+                    "≥ 1",
                 ),
                 _row("recording, cutoff 0 (writer thread)", f"{rec / plain:.2f}×", "≤ 1.15×"),
                 _row("bytes a node, cutoff 0", f"{size / nodes:.2f}", "≤ 6"),

@@ -36,7 +36,7 @@ def _tree(dist: np.ndarray, members: np.ndarray, k: int, key: np.ndarray) -> flo
     return total
 
 
-@njit(cache=True)
+@njit  # not cached: numba's cache of a self-recursive function crashed on reload here
 def _visit(
     dist: np.ndarray,
     children: np.ndarray,
