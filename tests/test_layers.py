@@ -25,6 +25,7 @@ TRACER = ROOT / "tracer"
 #: Adding a public name on purpose? Add it here too, in the same change.
 PUBLIC: dict[str, set[str]] = {
     "tracer.base": {
+        "OUR_BOUNDS",
         "DECODED_ALLOWANCE",
         "MAX_DECODED_RATIO",
         "BlockSource",

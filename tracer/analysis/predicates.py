@@ -365,7 +365,11 @@ def kept_ids(
     for start in range(lo, hi, CHUNK):
         stop = min(hi, start + CHUNK)
         keep = _clause_mask(node_filter, trail, index, slice(start, stop))
-        parts.append(np.flatnonzero(keep).astype(np.int64) + start)
+        kept = np.flatnonzero(keep).astype(np.int64, copy=False)
+        kept += start  # in place: the array is ours
+        parts.append(kept)
+    if len(parts) == 1:
+        return parts[0]
     return np.concatenate(parts) if parts else np.zeros(0, dtype=np.int64)
 
 

@@ -4,6 +4,7 @@ from tracer.base.file_kinds import KIND_NAMES, FileKind, expect_kind, sniff, sni
 from tracer.base.frames import BestUpdate, EndInfo, length_value
 from tracer.base.header import (
     NO_BOUND,
+    OUR_BOUNDS,
     PENALTIES,
     TREE_LINKS,
     HeaderError,
@@ -161,6 +162,7 @@ __all__ = [
     "NODES",
     "NO_BOUND",
     "ORPHAN",
+    "OUR_BOUNDS",
     "PARTIAL",
     "PENALTIES",
     "PENALTY",

@@ -26,6 +26,7 @@ from tracer.base import (
     INTERRUPTED,
     LIMIT,
     NO_BOUND,
+    OUR_BOUNDS,
     PENALTIES,
     PENALTY_COLUMNS,
     TREE,
@@ -48,7 +49,8 @@ from tracer.search.tours import start_tour, tour_length
 #: in the sweep of tests/bench/bench_cutoff.py (figures in tests/bench/README.md).
 DEFAULT_CUTOFF = 1
 ORDERS = ("nearest", "index")
-BOUNDS = (TREE_LINKS, PENALTIES, NO_BOUND)
+#: The bounds the search runs: exactly those the re-check has a rule for.
+BOUNDS = OUR_BOUNDS
 _BOUND_CODES = {
     NO_BOUND: engine.BOUND_NONE,
     TREE_LINKS: engine.BOUND_TREE_LINKS,
