@@ -474,7 +474,7 @@ def read_trail(path: str | Path) -> Trail:
         trail.end,
         trail.best,
         trail.count,
-        lambda: np.bincount(trail.columns[DECISION], minlength=len(DECISION_NAMES)),
+        lambda: _decision_counts(trail.columns[DECISION]),
     )
     if disagreement is not None:
         trail.end = None
@@ -490,6 +490,12 @@ def read_trail(path: str | Path) -> Trail:
     elif trail.end is None:
         trail.notice = f"no end frame: a live or crashed run ({trail.count} nodes so far)"
     return trail
+
+
+def _decision_counts(decision: NDArray[Any]) -> NDArray[np.int64]:
+    """Nodes per decision code: one comparison pass per code over the narrow column, which
+    is faster than `np.bincount` (that first widens every code to 64 bits)."""
+    return np.array([np.count_nonzero(decision == code) for code in range(len(DECISION_NAMES))])
 
 
 def _end_disagreement(
