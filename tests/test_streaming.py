@@ -447,7 +447,7 @@ def test_random_trees(
     size: int,
     rows: int,
 ) -> None:
-    """On random record sequences the streamed report equals the in-memory one."""
+    """On random record sequences the streamed report and figures equal the in-memory ones."""
     base = _BASE.get("trail")
     if base is None:
         path = tmp_path_factory.mktemp("random") / "base.trail"
@@ -458,6 +458,8 @@ def test_random_trees(
     trail = data.draw(_random_trails(base))
     whole = recheck(trail, first=7)
     _same_report(stream_recheck(memory_blocks(trail, size), rows=rows, first=7), whole)
+    figures = depth_stats(trail, TreeIndex(trail.columns, trail.best))
+    assert stream_stats(memory_blocks(trail, size)).to_json() == figures.to_json()
 
 
 _BASE: dict[str, Trail] = {}
