@@ -254,7 +254,7 @@ class _FramePlan:
     later: list[_FrameFinding]
 
 
-class _Rule:
+class CheckRule:
     """The trail's settings, matrix and tolerance, shared by every chunk."""
 
     def __init__(
@@ -301,7 +301,7 @@ class _Rule:
         ids: NDArray[np.int64],
         roots: NDArray[np.int64],
         seeded: int,
-    ) -> _Rule:
+    ) -> CheckRule:
         """The same rule over a window of rows: `seeded` carried ancestors (ids `ids`,
         partial-chain roots `roots`), then consecutive records from id `ids[seeded]`."""
         rule = copy.copy(self)
@@ -470,7 +470,7 @@ def _partial_chains(
     scale: float,
     seeded: int,
 ) -> np.ndarray:
-    """`_Rule.chains` in one pre-order pass (the first `seeded` rows, carried ancestors of a
+    """`CheckRule.chains` in one pre-order pass (the first `seeded` rows, carried ancestors of a
     window, only set up the stack: each is its own root here, translated by the caller).
 
     A node's recorded partial follows from upstream when it is its parent's recorded
@@ -554,7 +554,7 @@ def recheck(
         index = TreeIndex(trail.columns, trail.best)
     stop = trail.count if stop is None else min(stop, trail.count)
     start = max(0, min(start, stop))
-    rule = _Rule(trail, index, strict)
+    rule = CheckRule(trail, index, strict)
     tally = Tally(rule, start, stop, first)
     step = chunk_rows(rule.n)
     for lo in range(start, stop, step):
@@ -573,7 +573,7 @@ def chunk_rows(n: int) -> int:
 class Tally:
     """The report built chunk by chunk, in id order, over the id range [start, stop)."""
 
-    def __init__(self, rule: _Rule, start: int, stop: int, first: int) -> None:
+    def __init__(self, rule: CheckRule, start: int, stop: int, first: int) -> None:
         self.first = first
         self.report = RecheckReport(
             nodes_checked=stop - start,
@@ -587,7 +587,7 @@ class Tally:
         self._wrong: list[NDArray[np.int64]] = []
         self._missed: list[NDArray[np.int64]] = []
 
-    def add(self, rule: _Rule, lo: int, hi: int) -> None:
+    def add(self, rule: CheckRule, lo: int, hi: int) -> None:
         """Check the rows [lo, hi) of the rule's trail (or window) and count them in."""
         report, first = self.report, self.first
         checks = _check_chunk(rule, lo, hi)
@@ -680,10 +680,10 @@ def recompute_node(trail: Trail, index: TreeIndex, node: int) -> dict[str, float
     """
     if not 0 <= node < trail.count:
         raise IndexError(f"node {node} is not in the trail (0..{trail.count - 1})")
-    return recompute_row(_Rule(trail, index), node)
+    return recompute_row(CheckRule(trail, index), node)
 
 
-def recompute_row(rule: _Rule, node: int) -> dict[str, float | int | None]:
+def recompute_row(rule: CheckRule, node: int) -> dict[str, float | int | None]:
     """`recompute_node` at one row of the rule's trail or window."""
     cols, index = rule.columns, rule.index
     ids = np.array([node], dtype=np.int64)
@@ -720,7 +720,7 @@ def recompute_row(rule: _Rule, node: int) -> dict[str, float | int | None]:
 
 
 def _findings(
-    rule: _Rule,
+    rule: CheckRule,
     lo: int,
     checks: list[_Check],
     frames: list[_FrameFinding],
@@ -775,7 +775,7 @@ def _findings(
     return out[:room]
 
 
-def _recorded(rule: _Rule, name: str, node: int) -> Value:
+def _recorded(rule: CheckRule, name: str, node: int) -> Value:
     """A length column's recorded value at one node (None if absent or not recorded)."""
     column = rule.columns.get(name)
     if column is None or bool(is_absent(column[node : node + 1])[0]):
@@ -783,7 +783,7 @@ def _recorded(rule: _Rule, name: str, node: int) -> Value:
     return _plain(column[node], rule.exact or column.dtype.kind in "iu")
 
 
-def _arithmetic(rule: _Rule, node: int, check: _Check, j: int) -> tuple[dict[str, Value], str]:
+def _arithmetic(rule: CheckRule, node: int, check: _Check, j: int) -> tuple[dict[str, Value], str]:
     """The numbers a decision was judged on, and one line saying what the rule wanted."""
     values = recompute_row(rule, node)
     incumbent = values["incumbent"]
@@ -839,7 +839,7 @@ def _text(value: Value) -> str:
 
 
 def _hint(
-    rule: _Rule, node: int, kind: str, name: str, numbers: dict[str, Value] | None
+    rule: CheckRule, node: int, kind: str, name: str, numbers: dict[str, Value] | None
 ) -> str | None:
     """A likely cause, given only where the pattern is certain."""
     index = rule.index
@@ -889,7 +889,7 @@ def _hint(
     return None
 
 
-def _same(rule: _Rule, a: float, b: float) -> bool:
+def _same(rule: CheckRule, a: float, b: float) -> bool:
     """Two lengths agree (exactly, or within the float tolerance)."""
     return bool(rule.agrees(np.array([a]), np.array([b]))[0])
 
@@ -916,7 +916,7 @@ def _shown(
 
 
 def _walk(
-    rule: _Rule, lo: int, city: NDArray[np.intp], depth: NDArray[Any], parent: NDArray[Any]
+    rule: CheckRule, lo: int, city: NDArray[np.intp], depth: NDArray[Any], parent: NDArray[Any]
 ) -> tuple[NDArray[np.uint64], NDArray[Any]]:
     """Visited mask and partial length of every node in a chunk.
 
@@ -994,7 +994,7 @@ class _Bound:
 
 
 def _bound_parts(
-    rule: _Rule,
+    rule: CheckRule,
     unvisited: NDArray[np.uint64],
     city: NDArray[np.intp],
     need: NDArray[np.bool_],
@@ -1042,7 +1042,7 @@ def _bound_parts(
 
 
 def _verdict(
-    rule: _Rule,
+    rule: CheckRule,
     value: NDArray[Any],
     incumbent: NDArray[np.float64],
     yes: Decision,
@@ -1080,7 +1080,7 @@ def _has_child(index: TreeIndex, lo: int, hi: int) -> NDArray[np.bool_]:
     return out
 
 
-def _check_chunk(rule: _Rule, lo: int, hi: int) -> list[_Check]:
+def _check_chunk(rule: CheckRule, lo: int, hi: int) -> list[_Check]:
     """Every field check over the ids [lo, hi)."""
     cols = rule.columns
     rows = np.arange(lo, hi)
@@ -1197,7 +1197,7 @@ def _check_chunk(rule: _Rule, lo: int, hi: int) -> list[_Check]:
 
 
 def _attribute(
-    rule: _Rule,
+    rule: CheckRule,
     lo: int,
     hi: int,
     checks: list[_Check],
@@ -1246,7 +1246,7 @@ def _attribute(
 
 
 def _follows_recorded(
-    rule: _Rule,
+    rule: CheckRule,
     lo: int,
     hi: int,
     incumbent: NDArray[np.float64],
@@ -1302,7 +1302,7 @@ def _column_checks(
 
 
 def _number_checks(
-    rule: _Rule,
+    rule: CheckRule,
     lo: int,
     hi: int,
     live: NDArray[np.bool_],
@@ -1378,7 +1378,7 @@ def _number_checks(
 
 
 def _decision_check(
-    rule: _Rule,
+    rule: CheckRule,
     lo: int,
     hi: int,
     decision: NDArray[Any],

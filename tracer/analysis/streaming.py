@@ -25,7 +25,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from tracer.analysis.oracle import CompletionTable, best_completions
-from tracer.analysis.rechecking import RecheckReport, Tally, _Rule, chunk_rows
+from tracer.analysis.rechecking import CheckRule, RecheckReport, Tally, chunk_rows
 from tracer.analysis.stats import DepthStats, DepthTally
 from tracer.analysis.tree_index import ORPHAN, TreeIndex
 from tracer.analysis.why import HARMFUL_SHOWN, Follow, Harm, WhyReport, judged, reference_cycle
@@ -194,12 +194,12 @@ def stream_recheck(
     stop = total if stop is None else min(stop, total)
     start = max(0, min(start, stop))
     tally: Tally | None = None
-    base: _Rule | None = None
+    base: CheckRule | None = None
     roots = np.zeros(0, dtype=np.int64)
     for window in windows(source, rows):
         lo, hi = window.first, window.first + window.count
         if base is None:
-            base = _Rule(window.trail, window.index, strict, total=total)
+            base = CheckRule(window.trail, window.index, strict, total=total)
             tally = Tally(base, start, stop, first)
         all_roots = np.concatenate([roots, window.ids[window.seeded :]])
         rule = base.view(window.trail, window.index, window.ids, all_roots, window.seeded)
@@ -224,7 +224,7 @@ def _empty_report(
     """The report of a source without records (its frames alone are checked)."""
     cols = {name: np.zeros(0, dtype=dtype) for name, dtype in _dtypes(source)}
     trail = Trail(source.path, source.header, cols, source.best, source.end, source.notice)
-    rule = _Rule(trail, TreeIndex(cols, source.best), strict)
+    rule = CheckRule(trail, TreeIndex(cols, source.best), strict)
     return Tally(rule, start, stop, first).finish()
 
 

@@ -43,14 +43,14 @@ from tracer.base import (
     tree_shape,
 )
 from tracer.trails.reader import (
-    _READ_SIZE,
+    READ_SIZE,
     CorruptTrailError,
-    _Block,
-    _consume,
-    _decode_column,
-    _end_disagreement,
-    _Frames,
-    _unpacker,
+    FrameLog,
+    RawBlock,
+    consume_frames,
+    decode_column,
+    end_disagreement,
+    frame_unpacker,
 )
 
 #: The end frame's key holding the block index (a key old readers ignore).
@@ -204,7 +204,7 @@ class BlockIndex:
         """The codec of a block's payloads."""
         return CODECS[int(self._table[block, _F["codec"]])]
 
-    def append(self, block: _Block, summary: BlockSummary, first: int) -> None:
+    def append(self, block: RawBlock, summary: BlockSummary, first: int) -> None:
         """Add one block's row."""
         if self._rows == len(self._table):
             grown = np.zeros((max(64, 2 * self._rows), len(INDEX_FIELDS)), dtype=np.int64)
@@ -243,8 +243,8 @@ class BlockScanner:
             self._handle: BinaryIO = open(self.path, "rb")  # noqa: SIM115 (closed in close())
         except OSError as exc:
             raise InputError(self.path, f"cannot read: {exc.strerror or exc}") from None
-        self._unpacker = _unpacker(None)
-        self._frames = _Frames(str(self.path))
+        self.frame_unpacker = frame_unpacker(None)
+        self._frames = FrameLog(str(self.path))
         self._top = 0
         self._ended = False
         self.index: BlockIndex | None = None
@@ -261,14 +261,14 @@ class BlockScanner:
         left = max_bytes
         corrupt = self.index.corrupt if self.index is not None else None
         while corrupt is None:
-            want = _READ_SIZE if left is None else min(left, _READ_SIZE)
+            want = READ_SIZE if left is None else min(left, READ_SIZE)
             if want <= 0:
                 break
             data = self._handle.read(want)
             if data:
-                self._unpacker.feed(data)
+                self.frame_unpacker.feed(data)
                 left = None if left is None else left - len(data)
-            corrupt = _consume(self._unpacker, frames)
+            corrupt = consume_frames(self.frame_unpacker, frames)
             if frames.header is not None and self.index is None:
                 self.index = BlockIndex(str(self.path), frames.header)
                 self.index.header_end = frames.header_end
@@ -299,10 +299,10 @@ class BlockScanner:
         try:
             for block in frames.blocks:
                 first = self.index.total
-                depth = _decode_column(
+                depth = decode_column(
                     header, depth_col, block.codec, block.payload[DEPTH], block.nodes
                 )
-                decision = _decode_column(
+                decision = decode_column(
                     header, decision_col, block.codec, block.payload[DECISION], block.nodes
                 )
                 problem = depth if isinstance(depth, str) else decision
@@ -340,7 +340,7 @@ def _scan_notice(index: BlockIndex, end_offset: int) -> str | None:
     """The notice `read_trail` would give for what the scan found."""
     if index.corrupt is not None:
         return f"{index.corrupt}; indexed the {index.total} nodes before it"
-    disagreement = _end_disagreement(
+    disagreement = end_disagreement(
         index.end, index.best, index.total, lambda: index.decisions.sum(axis=0)
     )
     if disagreement is not None:
@@ -415,7 +415,7 @@ def _index_problem_at(at: int, size: int) -> str | None:
 
 def _one_frame(data: bytes) -> tuple[Any, int]:
     """The first MessagePack value in `data` (within the reader's limits) and its length."""
-    unpacker = _unpacker(None)
+    unpacker = frame_unpacker(None)
     unpacker.feed(data)
     value = unpacker.unpack()
     return value, unpacker.tell()
@@ -424,9 +424,9 @@ def _one_frame(data: bytes) -> tuple[Any, int]:
 def _read_index(path: Path, handle: BinaryIO, at: int, size: int) -> BlockIndex | str:
     """Read the header, the end frame at `at` and its index; why not, if any check fails."""
     where = f"the index in the end frame at byte {at} is unusable"
-    frames = _Frames(str(path))
+    frames = FrameLog(str(path))
     handle.seek(0)
-    head = _unpacker(handle)
+    head = frame_unpacker(handle)
     try:
         header_frame = head.unpack()
         frames.here = head.tell()
@@ -458,7 +458,7 @@ def _read_index(path: Path, handle: BinaryIO, at: int, size: int) -> BlockIndex 
         end = frames._end(frame, at)
     except CorruptTrailError as exc:
         return f"{where} (the end frame: {exc})"
-    problem = _end_disagreement(end, best, index.total, lambda: index.decisions.sum(axis=0))
+    problem = end_disagreement(end, best, index.total, lambda: index.decisions.sum(axis=0))
     if problem is not None:
         return f"{where} (the end frame disagrees with it: {problem})"
     index.best, index.end, index.done, index.from_index = best, end, size, True
@@ -506,7 +506,7 @@ def _index_table(
 
 
 def _index_best(
-    raw: Any, handle: BinaryIO, frames: _Frames, table: NDArray[np.int64], at: int
+    raw: Any, handle: BinaryIO, frames: FrameLog, table: NDArray[np.int64], at: int
 ) -> list[BestUpdate] | str:
     """The incumbent updates at the offsets the index lists, read and checked as when scanned."""
     if not isinstance(raw, bytes) or len(raw) % 8 or len(raw) // 8 > MAX_INDEX_BEST:

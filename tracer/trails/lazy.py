@@ -45,10 +45,10 @@ from tracer.trails.blocks import (
 )
 from tracer.trails.reader import (
     CorruptTrailError,
-    _Block,
-    _decode_column,
-    _Frames,
-    _unpacker,
+    FrameLog,
+    RawBlock,
+    decode_column,
+    frame_unpacker,
 )
 
 #: Default bound of a `BlockFile`'s cache of decoded columns.
@@ -279,9 +279,9 @@ class BlockFile:
         )
         self._handle.seek(offset)
         data = self._handle.read(stop - offset)
-        frames = _Frames(self.path)
+        frames = FrameLog(self.path)
         frames.header, frames.total, frames.header_end = self.header, first, self.index.header_end
-        unpacker = _unpacker(None)
+        unpacker = frame_unpacker(None)
         unpacker.feed(data)
         try:
             while unpacker.tell() < len(data):
@@ -292,7 +292,7 @@ class BlockFile:
         except (msgpack.UnpackException, ValueError) as exc:
             raise self._bad(block, f"its frame does not read ({exc})") from None
         frames.finish()
-        blocks: list[_Block] = frames.blocks
+        blocks: list[RawBlock] = frames.blocks
         if len(blocks) != 1 or (blocks[0].nodes, blocks[0].codec) != (
             count,
             self.index.codec(block),
@@ -302,7 +302,7 @@ class BlockFile:
 
     def _decode(self, block: int, col: Column, payload: dict[str, bytes]) -> NDArray[Any]:
         count = int(self.index.values("count")[block])
-        values = _decode_column(self.header, col, self.index.codec(block), payload[col.name], count)
+        values = decode_column(self.header, col, self.index.codec(block), payload[col.name], count)
         if isinstance(values, str):
             raise self._bad(block, values)
         if col.name in (DEPTH, DECISION):

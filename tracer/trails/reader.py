@@ -71,7 +71,8 @@ from tracer.base import (
     show_value,
 )
 
-_READ_SIZE = 1 << 20
+#: Bytes read from the file at a time (the reader's and the block scan's).
+READ_SIZE = 1 << 20
 _NODE_FRAME_BATCH = 1 << 16
 
 
@@ -83,10 +84,11 @@ class CorruptTrailError(InputError):
         self.partial = partial
 
 
-def _unpacker(source: BinaryIO | None) -> msgpack.Unpacker:
+def frame_unpacker(source: BinaryIO | None) -> msgpack.Unpacker:
+    """A MessagePack reader with every size bounded by the trail limits (shared by the scan)."""
     return msgpack.Unpacker(
         source,
-        read_size=_READ_SIZE,
+        read_size=READ_SIZE,
         raw=False,
         strict_map_key=True,
         max_buffer_size=MAX_FRAME_BYTES,
@@ -98,7 +100,7 @@ def _unpacker(source: BinaryIO | None) -> msgpack.Unpacker:
     )
 
 
-class _Block(NamedTuple):
+class RawBlock(NamedTuple):
     """One node block as framed: still compressed, with the byte offset of its frame."""
 
     nodes: int
@@ -108,13 +110,13 @@ class _Block(NamedTuple):
     stop: int  # one past the last byte of that frame (or of the last batched `node` frame)
 
 
-class _Frames:
+class FrameLog:
     """Validates frames one by one and keeps what they say (node payloads undecoded)."""
 
     def __init__(self, path: str) -> None:
         self.path = path
         self.header: TrailHeader | None = None
-        self.blocks: list[_Block] = []
+        self.blocks: list[RawBlock] = []
         self.total = 0
         self.best: list[BestUpdate] = []
         self.end: EndInfo | None = None
@@ -199,7 +201,7 @@ class _Frames:
             raise self.fail(offset, f"more than {MAX_TRAIL_NODES} nodes")
         self._claim(count, offset)
         columns = {c.name: payload[c.name] for c in self.header.columns}
-        self.blocks.append(_Block(count, codec, columns, offset, self.here))
+        self.blocks.append(RawBlock(count, codec, columns, offset, self.here))
         self.total += count
 
     def _claim(self, count: int, offset: int) -> None:
@@ -247,7 +249,7 @@ class _Frames:
         for col in self.header.columns:
             payload[col.name] = np.array(self._pending[col.name], dtype=col.dtype).tobytes()
         self.decoded += self._pending_count * sum(c.dtype.itemsize for c in self.header.columns)
-        block = _Block(
+        block = RawBlock(
             self._pending_count, "none", payload, self._pending_offset, self._pending_stop
         )
         self.blocks.append(block)
@@ -372,18 +374,18 @@ def _decode_into(
     store: dict[str, NDArray[Any]],
     header: TrailHeader,
     pos: int,
-    block: _Block,
+    block: RawBlock,
 ) -> str | None:
     """Decode one block into store[...][pos:pos+count]; returns an error message or None."""
     for col in header.columns:
-        values = _decode_column(header, col, block.codec, block.payload[col.name], block.nodes)
+        values = decode_column(header, col, block.codec, block.payload[col.name], block.nodes)
         if isinstance(values, str):
             return values
         store[col.name][pos : pos + block.nodes] = values
     return None
 
 
-def _decode_column(
+def decode_column(
     header: TrailHeader, col: Column, codec: str, data: bytes, count: int
 ) -> NDArray[Any] | str:
     """One column of a block as `count` checked values (read-only), or why it cannot be."""
@@ -408,7 +410,7 @@ def _decode_column(
     return values
 
 
-def _consume(unpacker: msgpack.Unpacker, frames: _Frames) -> CorruptTrailError | None:
+def consume_frames(unpacker: msgpack.Unpacker, frames: FrameLog) -> CorruptTrailError | None:
     """Hand every complete frame to `frames`; the first corrupt one is returned, not raised."""
     while True:
         # After running out of data the unpacker keeps its place inside the frame, so the
@@ -444,10 +446,10 @@ def read_trail(path: str | Path) -> Trail:
         size = p.stat().st_size
     except OSError as exc:
         raise InputError(p, f"cannot read: {exc.strerror or exc}") from None
-    frames = _Frames(str(p))
+    frames = FrameLog(str(p))
     with handle:
-        unpacker = _unpacker(handle)
-        corrupt = _consume(unpacker, frames)
+        unpacker = frame_unpacker(handle)
+        corrupt = consume_frames(unpacker, frames)
         stop = frames.resume
     frames.finish()
     if frames.header is None:
@@ -470,7 +472,7 @@ def read_trail(path: str | Path) -> Trail:
     if corrupt is not None:
         corrupt.partial = trail
         raise corrupt
-    disagreement = _end_disagreement(
+    disagreement = end_disagreement(
         trail.end,
         trail.best,
         trail.count,
@@ -498,7 +500,7 @@ def _decision_counts(decision: NDArray[Any]) -> NDArray[np.int64]:
     return np.array([np.count_nonzero(decision == code) for code in range(len(DECISION_NAMES))])
 
 
-def _end_disagreement(
+def end_disagreement(
     end: EndInfo | None,
     best: list[BestUpdate],
     count: int,
@@ -537,8 +539,8 @@ class TrailFollower:
     def __init__(self, path: str | Path) -> None:
         self.path = Path(path)
         self._handle: BinaryIO = open(self.path, "rb")  # noqa: SIM115 (closed in close())
-        self._unpacker = _unpacker(None)
-        self._frames = _Frames(str(self.path))
+        self.frame_unpacker = frame_unpacker(None)
+        self._frames = FrameLog(str(self.path))
         self._store: dict[str, NDArray[Any]] = {}
         self._count = 0
         self._decoded_blocks = 0
@@ -554,13 +556,13 @@ class TrailFollower:
             CorruptTrailError: a corrupt frame.
         """
         while True:  # a chunk at a time: the unpacker's buffer holds one frame at most
-            data = self._handle.read(_READ_SIZE)
+            data = self._handle.read(READ_SIZE)
             if data:
-                self._unpacker.feed(data)
-            corrupt = _consume(self._unpacker, self._frames)
+                self.frame_unpacker.feed(data)
+            corrupt = consume_frames(self.frame_unpacker, self._frames)
             if corrupt is not None:
                 raise corrupt
-            if len(data) < _READ_SIZE:
+            if len(data) < READ_SIZE:
                 break
         if self._frames.end is not None:
             self._frames.finish()
