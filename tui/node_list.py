@@ -111,9 +111,27 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
     def reload(self) -> None:
         """The rows or marks changed: recount, forget cached lines, redraw."""
         self._cache.clear()
-        self.virtual_size = Size(self._row_width, len(self.model.rows))
+        self._set_virtual_size(Size(self._row_width, len(self.model.rows)))
         self.set_reactive(NodeList.cursor_row, self.validate_cursor_row(self.cursor_row))
         self.refresh()
+
+    # A scroll view's scrollbars are brought up to date on every layout pass of the screen
+    # (`_size_updated` compares the compositor's virtual size, which for a scroll view is only
+    # its window, with the real one, so they always differ). The repaint that asks for comes
+    # after that pass's frame, so any layout change elsewhere (a prompt line closing) cost a
+    # second frame. Here the scrollbars are updated when the rows change, before the frame,
+    # and a layout pass that leaves this widget's size alone leaves them alone too.
+    def _set_virtual_size(self, size: Size) -> None:
+        self.virtual_size = size
+        if self.is_mounted and self.container_size:
+            self._scroll_update(size)
+
+    def _size_updated(
+        self, size: Size, virtual_size: Size, container_size: Size, layout: bool = True
+    ) -> bool:
+        if size == self._size and container_size == self.container_size:
+            return False
+        return super()._size_updated(size, virtual_size, container_size, layout)
 
     def marks_changed(self) -> None:
         """New re-check results: redraw (lines are cached with their marks)."""
@@ -172,7 +190,7 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
     def on_resize(self) -> None:
         self._cache.clear()
         self._row_width = self.scrollable_content_region.width
-        self.virtual_size = Size(self._row_width, len(self.model.rows))
+        self._set_virtual_size(Size(self._row_width, len(self.model.rows)))
         if self.header is not None:
             self.header.update(self.header_text(), layout=False)
 
@@ -272,14 +290,24 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
                 format_number(incumbent[i], integral).rjust(_NUM),
             ]
             path = shorten_path(model.index.path(node), path_w).ljust(path_w)
+            lead = f" {node:>{id_w}} {int(depth[i]):>3} "
+            middle = " " + " ".join(numbers) + "  "
+            # Every character in a row is one cell wide, so the row is cut to the width
+            # here, in the decision's cell, rather than by a crop (each `Strip` made costs).
+            room = width - (1 + len(lead) + len(path) + len(middle))
+            last = f"{word:<{_DECISION}}"
             segments = [
                 Segment(_WRONG_MARK, marked) if wrong[i] else Segment(" ", base),
-                Segment(f" {node:>{id_w}} {int(depth[i]):>3} ", base),
+                Segment(lead, base),
                 Segment(path, muted),
-                Segment(" " + " ".join(numbers) + "  ", base),
-                Segment(f"{word:<{_DECISION}}", by_decision[code]),
+                Segment(middle, base),
+                Segment(last[: max(room, 0)], by_decision[code]),
             ]
-            self._cache.set(start + i, Strip(segments).crop_extend(0, width, base))
+            if 0 <= room <= len(last):
+                strip = Strip(segments, width)
+            else:
+                strip = Strip(segments).crop_extend(0, width, base)
+            self._cache.set(start + i, strip)
 
     def on_click(self, event: Click) -> None:
         row = self.scroll_offset.y + event.y

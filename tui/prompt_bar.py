@@ -16,9 +16,23 @@ from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal
+from textual.widget import Widget
 from textual.widgets import Input, Label, Static
 
 from tracer.analysis import FilterError, parse_filter
+
+
+class PromptInput(Input):
+    """The prompt's input: losing focus as its prompt closes does not restyle it.
+
+    The prompt is hidden by then, and it is only shown again by taking the focus back,
+    which restyles it; the restyle skipped is a millisecond of the key that closes it.
+    """
+
+    def watch_has_focus(self, has_focus: bool) -> None:
+        parent = self.parent
+        if has_focus or not isinstance(parent, Widget) or parent.display:
+            super().watch_has_focus(has_focus)
 
 
 class PromptBar(Horizontal):
@@ -56,7 +70,7 @@ class PromptBar(Horizontal):
     ) -> None:
         super().__init__(id=id)
         self._label = Label(Text(label))
-        self._input = Input(
+        self._input = PromptInput(
             placeholder=placeholder, id=input_id, type="integer" if integer else "text"
         )
         self._error = Static("", id=f"{input_id}-error")

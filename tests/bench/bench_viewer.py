@@ -9,6 +9,8 @@ runs in its own child process, driven by the same harness, in the same run, so t
 are side by side. The first screen is stamped when the app hands its first rendered frame
 to the (headless) display: Pilot's `pause` waits for the process to go idle, which with
 the background re-check running takes up to a second after the screen is drawn.
+The filter and go-to rows time the enter that closes the prompt line, the text already
+typed and drawn (a pause after setting it, as a person's typing is drawn before enter).
 
 Run: python tests/bench/bench_viewer.py [--nodes N] [--repeats R]
 """
@@ -100,6 +102,7 @@ async def drive(app: Any, viewer: bool, repeats: int) -> dict[str, Any]:
                 if viewer:
                     await pilot.press("f")
                     app.screen.query_one("#filter").value = text
+                    await pilot.pause()  # the typed text is drawn before enter is pressed
                 timings[case].append(await _press(pilot, "enter"))
                 if viewer:
                     app.apply_filter("")
@@ -108,6 +111,7 @@ async def drive(app: Any, viewer: bool, repeats: int) -> dict[str, Any]:
                 await pilot.press("i")
                 target = (app.model.count * 3 // 4 - rep * 1000) % app.model.count
                 app.screen.query_one("#goto-id").value = str(target)
+                await pilot.pause()
             timings["jump to node"].append(await _press(pilot, "enter"))
         out["ms"] = {case: 1000 * statistics.median(t) for case, t in timings.items()}
         out["rss_after_keys_mb"] = _rss_mb()
