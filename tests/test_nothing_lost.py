@@ -108,6 +108,15 @@ def test_full_disk_gives_a_clear_error_and_a_readable_trail(
         assert np.array_equal(column, whole.columns[name][: trail.count]), name
 
 
+def _ctrl_c_as_from_a_terminal() -> None:
+    """In the child: SIGINT back to its default, as a command started from a terminal has it.
+
+    A test run started in the background (`pytest &` in a script) ignores SIGINT, and its
+    children inherit that; Python then installs no Ctrl-C handler, and this test would hang.
+    """
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 @pytest.mark.parametrize(
     "sig", [signal.SIGINT, pytest.param(signal.SIGTERM, marks=pytest.mark.thorough)]
 )
@@ -122,6 +131,7 @@ def test_import_interrupted_keeps_the_previous_trail(tmp_path: Path, sig: int) -
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         cwd=ROOT,
+        preexec_fn=_ctrl_c_as_from_a_terminal,
     )
     deadline = time.monotonic() + 60
     while True:  # a non-blocking open fails (ENXIO) until the importer opens its end
