@@ -252,3 +252,28 @@ def test_findings_name_the_solvers_id_and_line(tmp_path: Path, capsys) -> None:
     assert main(["check", str(path)]) == 1
     text = capsys.readouterr().out
     assert "486" in text and "line" in text
+
+
+def test_follower_counts_a_blank_line_read_alone(tmp_path: Path) -> None:
+    """A poll that reads only a newline still counts that line: a later error names the
+    line as an editor numbers it."""
+    path = tmp_path / "live.jsonl"
+    header = {
+        "kind": "header",
+        "instance": {"coords": [[0, 0], [1, 0], [1, 1]], "metric": "EUC_2D"},
+        "solver": {"bound": "tree+links"},
+    }
+    path.write_text(json.dumps(header) + "\n")
+    follower = jsonl.JsonlFollower(path)
+    try:
+        follower.poll()
+        with path.open("a") as f:
+            f.write("\n")
+        follower.poll()
+        with path.open("a") as f:
+            f.write("{not json\n")
+        with pytest.raises(InputError) as caught:
+            follower.poll()
+        assert caught.value.line == 3
+    finally:
+        follower.close()

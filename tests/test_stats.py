@@ -72,7 +72,7 @@ def burma(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
 def test_counts_are_the_bincount_of_the_columns(burma: dict[str, Path]) -> None:
     """Every depth × decision count equals a bincount made here; depths sum to the trail."""
     trail = open_trail(burma["full"])
-    stats = depth_stats(trail, TreeIndex(trail.columns, trail.best))
+    stats = depth_stats(trail)
     depth = trail.columns[DEPTH].astype(np.int64)
     decision = trail.columns[DECISION].astype(np.int64)
     for code in Decision:
@@ -91,8 +91,8 @@ def test_decisions_only_trail_counts_bounds_by_rule(burma: dict[str, Path]) -> N
     """A trail without numbers gets its bound evaluations from the cutoff rule, the same count."""
     full, bare = open_trail(burma["full"]), open_trail(burma["decisions"])
     assert TREE not in bare.columns
-    a = depth_stats(full, TreeIndex(full.columns, full.best))
-    b = depth_stats(bare, TreeIndex(bare.columns, bare.best))
+    a = depth_stats(full)
+    b = depth_stats(bare)
     assert np.array_equal(a.bound_evaluations, b.bound_evaluations)
     assert b.bound_evaluations.sum() > 0
     assert np.isnan(b.tightness_mean).all()  # no bound values recorded: no tightness
@@ -105,11 +105,11 @@ def test_tightness_against_the_oracle_and_the_final_incumbent(burma: dict[str, P
     index = TreeIndex(trail.columns, trail.best)
     root = sum(float(trail.columns[name][0]) for name in (PARTIAL, TREE, LINK_IN, LINK_OUT))
     optimum = TSPLIB_OPTIMUM["burma14"]  # TSPLIB published optimum
-    plain = depth_stats(trail, index)
+    plain = depth_stats(trail)
     assert plain.tightness_source == FINAL_INCUMBENT and plain.reference_length == optimum
     assert plain.tightness_mean[0] == pytest.approx(root / optimum)
     completions = best_completions(trail, index, completion_table(trail.header.instance))
-    exact = depth_stats(trail, index, completions)
+    exact = depth_stats(trail, completions)
     assert exact.tightness_source == ORACLE
     assert exact.tightness_mean[0] == pytest.approx(root / optimum)
     known = ~np.isnan(exact.tightness_mean)
@@ -123,7 +123,7 @@ def test_tightness_against_the_oracle_and_the_final_incumbent(burma: dict[str, P
 def test_improvements_are_the_tour_better_nodes(burma: dict[str, Path]) -> None:
     """Improvements are the tour_better nodes, lengths falling to TSPLIB's optimum."""
     trail = open_trail(burma["full"])
-    stats = depth_stats(trail, TreeIndex(trail.columns, trail.best))
+    stats = depth_stats(trail)
     better = np.flatnonzero(trail.columns[DECISION] == Decision.TOUR_BETTER)
     assert [i.node for i in stats.improvements] == better.tolist()
     lengths = [i.length for i in stats.improvements]

@@ -106,7 +106,7 @@ def _same_stats(trail: Trail, table: Any = None) -> None:
     from tracer.analysis import best_completions
 
     completions = best_completions(trail, index, table) if table is not None else None
-    whole = depth_stats(trail, index, completions)
+    whole = depth_stats(trail, completions)
     for size in (1, 7, 4096):
         if size == 1 and trail.count > 20_000:
             continue
@@ -306,7 +306,7 @@ def test_truncated_file(solved: Callable[..., Trail], tmp_path: Path) -> None:
         assert trail.notice is not None and trail.end is None and trail.count > 0
         trail.columns[PARTIAL][::1999] += 1
         _check_both(trail, [(4096, None), (7000, 333)])
-    _same_stats(trail)
+        _same_stats(trail)
 
 
 def test_empty_trail(solved: Callable[..., Trail]) -> None:
@@ -458,7 +458,7 @@ def test_random_trees(
     trail = data.draw(_random_trails(base))
     whole = recheck(trail, first=7)
     _same_report(stream_recheck(memory_blocks(trail, size), rows=rows, first=7), whole)
-    figures = depth_stats(trail, TreeIndex(trail.columns, trail.best))
+    figures = depth_stats(trail)
     assert stream_stats(memory_blocks(trail, size)).to_json() == figures.to_json()
 
 

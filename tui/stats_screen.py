@@ -61,7 +61,7 @@ class StatsScreen(Screen[None]):
     @classmethod
     def from_model(cls, model: ViewerModel) -> StatsScreen:
         """The screen for the model's trail (tightness from the oracle once it is known)."""
-        stats = depth_stats(model.trail, model.index, model.completions)
+        stats = depth_stats(model.trail, model.completions)
         return cls(stats, title=model.trail.header.instance.name)
 
     def compose(self) -> ComposeResult:

@@ -15,10 +15,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from numba import njit
 from numpy.typing import NDArray
 
-from tracer.analysis.tree_index import TreeIndex
 from tracer.base import (
     BOUND,
     DECISION,
@@ -221,18 +219,14 @@ def _final_length(best: list[BestUpdate], end: EndInfo | None) -> float | None:
     return min(lengths) if lengths else None
 
 
-def depth_stats(
-    trail: Trail, index: TreeIndex, completions: NDArray[np.float64] | None = None
-) -> DepthStats:
+def depth_stats(trail: Trail, completions: NDArray[np.float64] | None = None) -> DepthStats:
     """Per-depth counts and tightness of a trail.
 
     Args:
         trail: the trail read into memory.
-        index: its tree index (for the incumbent updates in the order they took effect).
         completions: best possible completion of every node (the oracle's), NaN where
             unknown; None to measure tightness against the final incumbent instead.
     """
-    del index  # the updates' depths are read from the columns, as a streamed trail's are
     tally = DepthTally(trail.header, trail.best, trail.end)
     tally.add(trail, 0, completions)
     return tally.finish(oracle=completions is not None)
@@ -287,7 +281,7 @@ class DepthTally:
             ratio = bounds / denominator
         known = bounded & np.isfinite(ratio) & (denominator > 0)
         at = depth[known]
-        _add_in_order(self.sums, at, ratio[known])
+        np.add.at(self.sums, at, ratio[known])  # in order of the rows: block sums stay exact
         self.seen += np.bincount(at, minlength=rows)[:rows]
         np.minimum.at(self.worst, at, ratio[known])
         here = self._frame_nodes[
@@ -326,11 +320,3 @@ class DepthTally:
                     Improvement(node, int(update.at), float(update.length), self._depths.get(node))
                 )
         return out
-
-
-@njit(cache=True, nogil=True)
-def _add_in_order(sums: NDArray[np.float64], at: NDArray[np.intp], values: NDArray[Any]) -> None:
-    """sums[at[i]] += values[i], in order of i (so the sum of one block after another is
-    the sum of them all at once, to the last bit)."""
-    for i in range(at.shape[0]):
-        sums[at[i]] += values[i]

@@ -87,9 +87,12 @@ def run(args: argparse.Namespace) -> int:
         err.print(Text(f"note: {trail.notice}", style="yellow"))
     table = None if args.no_oracle else _table(trail.header.instance, args.json)
     if isinstance(trail, Trail):
-        index = TreeIndex(trail.columns, trail.best)
-        completions = None if table is None else best_completions(trail, index, table)
-        stats = depth_stats(trail, index, completions)
+        completions = (
+            None
+            if table is None
+            else best_completions(trail, TreeIndex(trail.columns, trail.best), table)
+        )
+        stats = depth_stats(trail, completions)
     else:
         with trail:
             stats = stream_stats(trail, table)

@@ -75,7 +75,7 @@ INDEX_FIELDS: tuple[str, ...] = (
 )
 _F = {name: i for i, name in enumerate(INDEX_FIELDS)}
 _DECISIONS = slice(_F[DECISION_NAMES[0]], _F[DECISION_NAMES[-1]] + 1)
-#: Most blocks an index may list (96 bytes each: the end frame stays under the frame limit).
+#: Most blocks an index may list (104 bytes each: the end frame stays under the frame limit).
 MAX_INDEX_BLOCKS = (MAX_FRAME_BYTES // 2) // (8 * len(INDEX_FIELDS))
 #: Most incumbent updates an index may list (each is read from its own frame).
 MAX_INDEX_BEST = 1 << 16

@@ -634,7 +634,8 @@ class _Reading:
         if self.parser.status is None:
             first, pos = self._scan(first, body, pos)
         if pos == len(body):
-            return first + 1 if body.endswith(b"\n") else first  # a last, empty line
+            # a last, empty line (or `body` is one empty line)
+            return first + 1 if not body or body.endswith(b"\n") else first
         rest = body[pos:].split(b"\n")
         self._lines(first, rest)
         return first + len(rest)
