@@ -361,31 +361,73 @@ def test_scanning_in_steps_reports_progress_and_ends_equal(trails: dict[str, Pat
     assert (index.best, index.end, index.notice) == (whole.best, whole.end, whole.notice)
 
 
+@pytest.mark.parametrize("indexed", [False, True], ids=["scanned", "indexed"])
 def test_flipped_bytes_give_answers_or_clear_errors(
-    trails: dict[str, Path], tmp_path: Path
+    trails: dict[str, Path], tmp_path: Path, indexed: bool
 ) -> None:
-    """A byte flipped anywhere (frames or index) is read, or refused as corrupt: never a crash."""
+    """A byte flipped anywhere (frames or index) is refused as corrupt, or read exactly.
+
+    Read means: every column through the `BlockFile` (by range and by `blocks()`) equals what
+    `read_trail` reads from the same damaged bytes, over the same records; and, since every
+    zstd payload carries a checksum, it equals the undamaged trail's first records too.
+    """
     from tracer.base.errors import InputError
 
     full = read_trail(trails["burma14"])
-    small = Trail("", full.header, {k: v[:3000] for k, v in full.columns.items()}, [], None)
-    data = rewrite(small, tmp_path / "small.trail", 61).read_bytes()
+    columns = {k: v[:3000] for k, v in full.columns.items()}
+    end = None
+    if indexed:  # an end frame that agrees with the records: the writer leaves its index
+        counts = np.bincount(columns[DECISION], minlength=len(DECISION_NAMES))
+        decisions = {name: int(c) for name, c in zip(DECISION_NAMES, counts, strict=True)}
+        end = EndInfo("limit", 3000, 3000, decisions, 0.0, None, None)
+    small = Trail("", full.header, columns, [], end)
+    clean = rewrite(small, tmp_path / "small.trail", 61)
+    data = clean.read_bytes()
+    with open_blocks(clean) as lazy:
+        assert lazy.index.from_index == indexed
+    nodes_end = int(scan_blocks(clean).values("stop")[-1])  # where the node frames stop
     rng = np.random.default_rng(5)
-    spots = [*rng.integers(0, len(data), 25).tolist(), *range(len(data) - 40, len(data), 3)]
+    spots = [
+        *rng.integers(0, len(data), 25).tolist(),
+        *range(nodes_end, len(data), max(1, (len(data) - nodes_end) // 24)),
+        *range(len(data) - 40, len(data), 3),
+    ]
+    outcomes = {"refused": 0, "read": 0}
     for spot in spots:
         damaged = bytearray(data)
         damaged[spot] ^= 0x5A
         path = tmp_path / "flipped.trail"
         path.write_bytes(bytes(damaged))
         try:
-            with open_blocks(path) as lazy:
+            lazy = open_blocks(path)
+        except InputError:
+            with pytest.raises(InputError):  # only a header that does not read: nor here
+                read_trail(path)
+            outcomes["refused"] += 1
+            continue
+        with lazy:
+            try:
+                got = {name: lazy.column(name) for name in columns}
                 for node in range(0, lazy.count, max(1, lazy.count // 7)):
                     lazy.tree.path(node)
                     lazy.tree.subtree_end(node)
                 lazy.tree.decision_counts(3, lazy.count - 3)
-                sum(b.count for b in lazy.blocks())
-        except InputError:
-            pass  # refused, naming where: CorruptTrailError is one
+                blocks = list(lazy.blocks())
+            except InputError:  # refused, naming where: CorruptTrailError is one
+                outcomes["refused"] += 1
+                continue
+            count = lazy.count
+        outcomes["read"] += 1
+        want = _read(path)
+        assert count == want.count, spot
+        assert sum(b.count for b in blocks) == count, spot
+        for name, values in got.items():
+            assert np.array_equal(values, want.columns[name], equal_nan=True), (spot, name)
+            assert np.array_equal(values, columns[name][:count], equal_nan=True), (spot, name)
+            for b in blocks:
+                part = values[b.first : b.first + b.count]
+                assert np.array_equal(b.columns[name], part, equal_nan=True), (spot, name)
+    assert outcomes["refused"] and outcomes["read"], outcomes
 
 
 @pytest.mark.parametrize("kind", ["fault", "tiny-zstd"])

@@ -277,3 +277,83 @@ def test_follower_counts_a_blank_line_read_alone(tmp_path: Path) -> None:
         assert caught.value.line == 3
     finally:
         follower.close()
+
+
+def _followed_lines(tmp_path: Path, kind: str) -> list[str]:
+    """A trace of a real search as lines: in pre-order, with its layout widening late, or
+    breadth-first (every parent still visited before its children)."""
+    trail = solve_to_trail(
+        load_instance(instance_path("burma14")),
+        tmp_path / "source.trail",
+        SearchSettings(cutoff=2, max_nodes=3000),
+    )
+    lines = list(jsonl_lines(trail))
+    head, body, end = lines[0], lines[1:-1], lines[-1]
+    if kind == "widening":  # a fractional length, then a first bound, well into the run
+        items = [json.loads(line) for line in body]
+        nodes = [x for x in items if x["kind"] == "node" and "tree" in x]
+        nodes[len(nodes) // 3]["partial"] += 0.5
+        nodes[2 * len(nodes) // 3]["bound"] = nodes[2 * len(nodes) // 3]["partial"] + 1
+        body = [json.dumps(x) for x in items]
+    if kind == "breadth-first":
+        items = [json.loads(line) for line in body]
+        depth = {None: -1}
+        for x in items:
+            if x["kind"] == "node":
+                depth[x["id"]] = depth[x["parent"]] + 1
+        nodes = sorted((x for x in items if x["kind"] == "node"), key=lambda x: depth[x["id"]])
+        body = [json.dumps(x) for x in nodes + [x for x in items if x["kind"] == "best"]]
+    return [head, *body, end]
+
+
+def _same_trail(a: Trail, b: Trail) -> None:
+    """The two trails hold the same header, columns (dtypes too), updates, end and notice."""
+    assert (a.header.solver, a.header.columns) == (b.header.solver, b.header.columns)
+    assert np.array_equal(a.header.instance.matrix, b.header.instance.matrix)
+    assert a.columns.keys() == b.columns.keys()
+    for name in a.columns:
+        assert a.columns[name].dtype == b.columns[name].dtype, name
+        assert np.array_equal(a.columns[name], b.columns[name], equal_nan=True), name
+    assert (a.best, a.end, a.notice) == (b.best, b.end, b.notice)
+
+
+@pytest.mark.parametrize("kind", ["pre-order", "widening", "breadth-first"])
+def test_follower_polled_many_times_reads_as_one_read(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, kind: str
+) -> None:
+    """A trace polled as it grows (cut anywhere, mid-line too) gives at every poll the trail
+    one read of its whole lines gives; a pre-order trace is rebuilt only when its column
+    layout changes, and otherwise only grows by the new rows."""
+    data = "".join(line + "\n" for line in _followed_lines(tmp_path, kind)).encode()
+    builds = []
+    build = jsonl._build
+    monkeypatch.setattr(jsonl, "_build", lambda parsed: builds.append(1) or build(parsed))
+    live, whole = tmp_path / "live.jsonl", tmp_path / "whole.jsonl"
+    live.write_bytes(b"")
+    cuts = [*sorted(np.random.default_rng(7).integers(1, len(data), 60).tolist()), len(data)]
+    follower = jsonl.JsonlFollower(live)
+    layouts: list[object] = [None]
+    count = 0
+    try:
+        for cut in cuts:
+            live.write_bytes(data[:cut])
+            first, new, _ = follower.poll()
+            got = follower.trail
+            if got is None:
+                continue
+            assert first in (0, count) and first + new == got.count, cut
+            count = got.count
+            if got.header.columns != layouts[-1]:
+                layouts.append(got.header.columns)
+            whole.write_bytes(data[: data.rfind(b"\n", 0, cut) + 1])
+            with monkeypatch.context() as plain:
+                plain.setattr(jsonl, "_build", build)
+                _same_trail(got, read_jsonl(whole))
+    finally:
+        follower.close()
+    assert got is not None and got.end is not None  # the last poll read the whole trace
+    if kind != "breadth-first":
+        assert len(builds) == len(layouts) - 1, (len(builds), len(layouts))
+    if kind == "widening":
+        assert len(layouts) - 1 >= 3  # the first layout, then the float lengths, the bound
+    assert ("visit" in got.columns) == (kind == "breadth-first")

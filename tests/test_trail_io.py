@@ -8,6 +8,7 @@ import signal
 import subprocess
 import sys
 import time
+import warnings
 from pathlib import Path
 from typing import Any
 
@@ -342,3 +343,73 @@ def test_header_round_trip_keeps_settings(load_reference) -> None:
     assert back.solver == header.solver
     assert back.columns == header.columns
     assert np.array_equal(back.instance.coords, instance.coords)
+
+
+def _triangle_header(depth_dtype: str) -> dict[str, Any]:
+    """A three-city header whose depth column has the dtype text `depth_dtype`."""
+    return {
+        "kind": "header",
+        "format": "prunetrail",
+        "version": 1,
+        "instance": {"name": "tri", "n": 3, "metric": "EUC_2D", "coords": [[0, 0], [3, 0], [3, 4]]},
+        "columns": [["city", "|u1"], ["depth", depth_dtype], ["decision", "|u1"]],
+    }
+
+
+@pytest.mark.parametrize("text", ["a", "a1", "S1", ">u2", "uint8", "O", "<c8", "u16"])
+def test_column_dtype_outside_the_list_is_refused_without_a_warning(
+    tmp_path: Path, text: str
+) -> None:
+    """A column dtype text not on our list is our error, and numpy never sees it (no warning)."""
+    path = tmp_path / "dtype.trail"
+    path.write_bytes(msgpack.packb(_triangle_header(text)))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with pytest.raises(CorruptTrailError, match=f"column depth's dtype '{text}'"):
+            read_trail(path)
+
+
+@pytest.mark.parametrize("text", ["|u1", "<u1", "=u1", "u1", "<u2"])
+def test_column_dtype_on_the_list_reads_little_endian(tmp_path: Path, text: str) -> None:
+    """Each spelling on the list reads, as the little-endian unsigned dtype it names."""
+    path = tmp_path / "dtype.trail"
+    node = {"kind": "node", "city": 0, "depth": 0, "decision": "expand"}
+    path.write_bytes(msgpack.packb(_triangle_header(text)) + msgpack.packb(node))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        trail = read_trail(path)
+    assert trail.columns["depth"].dtype == np.dtype(f"<{text[-2:]}")
+    assert trail.columns["depth"].tolist() == [0]
+
+
+def test_column_decoding_is_exact_after_a_failure_and_across_threads(
+    burma_trail: tuple[Path, Collect],
+) -> None:
+    """Each thread's reused decompressor decodes exactly, after a bad payload and in parallel."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    import zstandard
+
+    from tracer.trails.reader import decode_column
+
+    header = read_trail(burma_trail[0]).header
+    col = header.column("partial")
+    assert col is not None
+    rng = np.random.default_rng(3)
+    arrays = [rng.integers(0, 5000, 4000 + 37 * i).astype(col.dtype) for i in range(16)]
+    packer = zstandard.ZstdCompressor(write_checksum=True)
+    payloads = [packer.compress(a.tobytes()) for a in arrays]
+
+    def decode(i: int) -> Any:
+        cut = decode_column(
+            header, col, "zstd", payloads[i][: len(payloads[i]) // 2], len(arrays[i])
+        )
+        assert isinstance(cut, str) and "does not decompress" in cut
+        return decode_column(header, col, "zstd", payloads[i], len(arrays[i]))
+
+    for i, values in enumerate(map(decode, range(len(arrays)))):
+        assert np.array_equal(values, arrays[i])
+    with ThreadPoolExecutor(4) as pool:
+        for _ in range(3):
+            for i, values in enumerate(pool.map(decode, range(len(arrays)))):
+                assert np.array_equal(values, arrays[i])

@@ -615,6 +615,40 @@ async def test_prompt_lines_keep_the_footer_and_focus(faulty):
         assert list(footer.children) == keys_before
 
 
+@pytest.mark.asyncio
+async def test_a_click_outside_an_open_prompt_closes_it(faulty):
+    """A click on the list or the map closes an open prompt as escape would; the click acts."""
+    app = _app(faulty)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        footer = app.query_one(SteadyFooter)
+        nodes = app.query_one(NodeList)
+        await pilot.press("f")
+        app.query_one("#filter", Input).value = "is prune"
+        await pilot.pause()
+        assert await pilot.click(NodeList, offset=(4, 5))
+        await pilot.pause()
+        assert not app.query_one(FilterBar).is_open
+        assert not app.query_one(FilterBar).display
+        assert app.model.filter.empty, "a click is not enter: the typed filter is not applied"
+        assert app.cursor == app.model.rows.id_at(5)
+        assert app.focused is nodes
+        assert not footer.held
+        assert app.query_one("#work").display
+        await pilot.press("down")  # keys reach the list again
+        assert app.cursor == app.model.rows.id_at(6)
+        await pilot.press("i")
+        app.query_one("#goto-id", Input).value = "7"
+        assert await pilot.click("#map", offset=(10, 5))
+        await pilot.pause()
+        assert not app.query_one(GoToBar).is_open
+        assert app.cursor == app.model.rows.id_at(6), "the go-to was dropped, not applied"
+        assert app.focused is app.query_one("#map"), "the focus stays where the click put it"
+        assert not footer.held
+        await pilot.press("f")  # and the prompt opens again as usual
+        assert app.query_one(FilterBar).is_open and isinstance(app.focused, Input)
+
+
 def test_loading_in_the_background_opens_the_same_trail(faulty, tmp_path):
     """`start_loading` hands back the trail and index a plain read gives; a bad file raises."""
     opened = start_loading(faulty).result()

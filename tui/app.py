@@ -11,7 +11,9 @@ never read as markup.
 
 from __future__ import annotations
 
+import contextlib
 import threading
+import time
 from collections.abc import Callable, Iterable
 from functools import partial
 from pathlib import Path
@@ -40,10 +42,14 @@ from tracer.analysis import (
     completion_table,
     explain,
     format_length,
+    lazy_view,
     recheck,
+    stream_explain,
+    stream_recheck,
+    stream_stats,
 )
-from tracer.base import InputError, PrunetrailError, Trail
-from tracer.trails import Follower
+from tracer.base import DEFAULT_MEMORY_MB, InputError, PrunetrailError, Trail
+from tracer.trails import BlockFile, Follower
 from tui.bookmarks import Bookmark, clean_note, load_bookmarks, save_bookmarks, sidecar_path
 from tui.bound_panel import BoundPanel
 from tui.city_map import CityMap
@@ -63,6 +69,18 @@ SPEEDS = (1, 2, 5, 10, 20, 50, 100)
 ORACLE_MAX_NODES = 1 << 22
 #: Seconds between polls of a live trail.
 FOLLOW_INTERVAL = 0.5
+#: Bytes a trail opened block by block is indexed by per step, and seconds between the
+#: snapshots the viewer takes while it is indexed.
+INDEX_STEP_BYTES = 16 << 20
+INDEX_SNAPSHOT_SECONDS = 0.5
+
+
+#: Node count assumed for bookmarks while a trail's index is incomplete (ids are int64).
+_UNKNOWN_COUNT = 1 << 62
+
+
+class _CancelledError(Exception):
+    """Raised inside a streaming pass to end it when its worker is cancelled."""
 
 
 # -- messages from workers ---------------------------------------------------------------
@@ -85,6 +103,16 @@ class TrailGrew(Message):
         super().__init__()
         self.trail = trail
         self.index = index
+
+
+class IndexProgress(Message):
+    """How far a trail opened block by block has been indexed (bytes of the file)."""
+
+    def __init__(self, done: int, size: int, nodes: int) -> None:
+        super().__init__()
+        self.done = done
+        self.size = size
+        self.nodes = nodes
 
 
 class Notice(Message):
@@ -189,11 +217,13 @@ class PrunetrailApp(App[None]):
         *,
         follow: bool = True,
         background: bool = True,
+        memory_mb: int = DEFAULT_MEMORY_MB,
     ) -> None:
         super().__init__()
         self._follower: Follower | None = None
         self._notice: str | None = None
         index: TreeIndex | None = None
+        blocks: BlockFile | None = None
         if isinstance(path_or_trail, Trail):
             trail = path_or_trail
             self._notice = trail.notice
@@ -201,12 +231,14 @@ class PrunetrailApp(App[None]):
             loading = (
                 path_or_trail
                 if isinstance(path_or_trail, Loading)
-                else start_loading(path_or_trail, follow=follow)
+                else start_loading(path_or_trail, follow=follow, memory_mb=memory_mb)
             )
             opened = loading.result()
             trail, self._notice, self._follower = opened.trail, opened.notice, opened.follower
-            index = opened.index
-        self.model = ViewerModel(trail, index, live=self._follower is not None)
+            index, blocks = opened.index, opened.blocks
+        live = self._follower is not None or (blocks is not None and blocks.indexing and follow)
+        self.model = ViewerModel(trail, index, live=live, blocks=blocks)
+        self._follow_blocks = follow
         self._background = background
         self._stop_follow = threading.Event()
         self.stops = StopCondition(prune=True)
@@ -217,7 +249,10 @@ class PrunetrailApp(App[None]):
         self._table: Any = None
         self._start = self._starting_view(at, prefix, filter)
         self._bookmark_file = sidecar_path(trail.path)
-        self.bookmarks, bookmark_notice = load_bookmarks(self._bookmark_file, trail.count)
+        # While a trail read block by block is still indexed, its count is not yet known:
+        # keep every bookmark (saving drops none that the rest of the file holds).
+        known = trail.count if blocks is None or not blocks.indexing else _UNKNOWN_COUNT
+        self.bookmarks, bookmark_notice = load_bookmarks(self._bookmark_file, known)
         self._notices = [n for n in (self._notice, bookmark_notice) if n]
         self._keymap_file = keymap_path()
         keymap, problems = load_keymap(self._keymap_file, self._binding_ids())
@@ -300,12 +335,15 @@ class PrunetrailApp(App[None]):
 
     def _start_background(self) -> None:
         """Start the re-check, the oracle and the follower once the first screen is drawn."""
+        blocks = self.model.blocks
         if self._background:
             self._recheck()
             if self._oracle_fits():
                 self._oracle()
         if self._follower is not None:
             self._follow(self._follower)
+        if blocks is not None and blocks.indexing and (self._follow_blocks or self._background):
+            self._index_blocks(blocks)
 
     # -- the cursor and what follows it --------------------------------------------------
 
@@ -452,7 +490,8 @@ class PrunetrailApp(App[None]):
         def done(value: Any) -> None:
             with self.batch_update():
                 self._work.display = True
-                self._node_list.focus()
+                if not bar.focus_left():  # a click that closed it keeps the focus it gave
+                    self._node_list.focus()
                 footer.held = False
                 then(value)
 
@@ -576,8 +615,70 @@ class PrunetrailApp(App[None]):
 
     # -- background work -----------------------------------------------------------------
 
-    @work(thread=True, exclusive=True, group="recheck", exit_on_error=False)
     def _recheck(self) -> None:
+        blocks = self.model.blocks
+        if blocks is None:
+            self._recheck_in_memory()
+        elif blocks.indexing:
+            self._work_label.update(
+                Text("re-check starts once the trail is indexed", style="dim"), layout=False
+            )
+        elif self.model.checked == 0 and self.model.count == blocks.count:
+            self._recheck_blocks(blocks)
+
+    @work(thread=True, exclusive=True, group="recheck", exit_on_error=False)
+    def _recheck_blocks(self, blocks: BlockFile) -> None:
+        """The re-check of a trail opened block by block: one streaming pass, marks as found."""
+        worker = get_current_worker()
+        total = self.model.count
+
+        def found(wrong: NDArray[np.int64], checked_to: int) -> None:
+            if worker.is_cancelled:
+                raise _CancelledError
+            self.post_message(RecheckProgress(wrong, checked_to, total))
+
+        with contextlib.suppress(_CancelledError):
+            stream_recheck(blocks, stop=total, first=0, on_wrong=found)
+
+    @work(thread=True, exclusive=True, group="index", exit_on_error=False)
+    def _index_blocks(self, blocks: BlockFile) -> None:
+        """Index the rest of a trail opened block by block (then follow it if it is live),
+        handing the viewer a new snapshot every `INDEX_SNAPSHOT_SECONDS`."""
+        worker = get_current_worker()
+        shown = time.monotonic()
+        while not worker.is_cancelled:
+            added = blocks.refresh(INDEX_STEP_BYTES)
+            _, done, size = blocks.progress
+            now = time.monotonic()
+            settled = not blocks.indexing or done >= size
+            if added and (settled or now - shown >= INDEX_SNAPSHOT_SECONDS):
+                shown = now
+                self.post_message(TrailGrew(*lazy_view(blocks)))
+            self.post_message(IndexProgress(done, size, blocks.count))
+            if not blocks.indexing:
+                if not added:
+                    self.post_message(TrailGrew(*lazy_view(blocks)))
+                return
+            if done >= size and (
+                not self._follow_blocks or self._stop_follow.wait(FOLLOW_INTERVAL)
+            ):
+                return
+
+    def on_index_progress(self, message: IndexProgress) -> None:
+        if self.model.checked:
+            return
+        self._work_bar.update(total=max(message.size, 1), progress=message.done)
+        self._work_label.update(
+            Text(
+                f"indexing: {message.done / 1e9:.2f} of {message.size / 1e9:.2f} GB, "
+                f"{message.nodes:,} nodes so far",
+                style="yellow",
+            ),
+            layout=False,
+        )
+
+    @work(thread=True, exclusive=True, group="recheck", exit_on_error=False)
+    def _recheck_in_memory(self) -> None:
         worker = get_current_worker()
         model = self.model
         trail, index = model.trail, model.index
@@ -623,6 +724,7 @@ class PrunetrailApp(App[None]):
             self.model.trail.n <= ORACLE_MAX_CITIES
             and self.model.count <= ORACLE_MAX_NODES
             and not self.model.live
+            and self.model.blocks is None
         )
 
     @work(thread=True, exclusive=True, group="oracle", exit_on_error=False)
@@ -673,7 +775,9 @@ class PrunetrailApp(App[None]):
     def on_trail_grew(self, message: TrailGrew) -> None:
         model = self.model
         at_end = model.count == 0 or model.cursor >= model.count - 1
-        model.replace_trail(message.trail, message.index)
+        dropped = model.replace_trail(message.trail, message.index)
+        if dropped is not None:
+            self.notify(dropped, severity="warning", timeout=8, markup=False)
         self._rows_changed()
         self.goto(model.count - 1 if at_end else model.cursor)
         if model.trail.end is not None:
@@ -721,9 +825,12 @@ class PrunetrailApp(App[None]):
         if table is None:
             table = completion_table(model.trail.header.instance)
             self._table = table
-        report = explain(
-            model.trail, model.index, tour=None, table=table, completions=model.completions
-        )
+        if model.blocks is not None:
+            report = stream_explain(model.blocks, tour=None, table=table)
+        else:
+            report = explain(
+                model.trail, model.index, tour=None, table=table, completions=model.completions
+            )
         self.post_message(WhyReady(report, show))
 
     def on_why_ready(self, message: WhyReady) -> None:
@@ -744,7 +851,23 @@ class PrunetrailApp(App[None]):
         """The per-depth statistics screen."""
         from tui.stats_screen import StatsScreen  # plotting loads only when a chart is shown
 
-        self.push_screen(StatsScreen.from_model(self.model))
+        blocks = self.model.blocks
+        if blocks is None:
+            self.push_screen(StatsScreen.from_model(self.model))
+        elif blocks.indexing:
+            self.notify("statistics once the trail is indexed", timeout=4, markup=False)
+        else:
+            self.notify(f"reading all {self.model.count:,} nodes for the statistics…", timeout=4)
+            self._stream_stats(blocks)
+
+    @work(thread=True, exclusive=True, group="stats", exit_on_error=False)
+    def _stream_stats(self, blocks: BlockFile) -> None:
+        from tui.stats_screen import StatsScreen
+
+        stats = stream_stats(blocks)
+        self.call_from_thread(
+            self.push_screen, StatsScreen(stats, title=self.model.trail.header.instance.name)
+        )
 
     # -- bookmarks -----------------------------------------------------------------------
 

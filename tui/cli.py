@@ -23,6 +23,7 @@ from tracer.cli import build_parser as tracer_parser
 from tracer.cli import run_command
 from tracer.cli._args import count, path_prefix
 from tracer.cli._console import out
+from tracer.cli.check import add_memory_option
 from tui import demo, serve
 from tui.loading import start_loading
 
@@ -100,6 +101,7 @@ def register_view(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> N
         metavar="COLSxROWS",
         help="screen size for --screenshot (default: 160x48)",
     )
+    add_memory_option(p, jsonl_streams=False)
     serve.add_serve_options(p)
     p.set_defaults(run=run_view)
 
@@ -126,7 +128,7 @@ def run_view(args: argparse.Namespace) -> int:
         return serve.serve_view(args)
     shot = args.screenshot
     # The trail is read while the viewer's libraries load (they load only for this command).
-    loading = start_loading(args.trail, follow=shot is None)
+    loading = start_loading(args.trail, follow=shot is None, memory_mb=args.memory_mb)
     from tui.app import PrunetrailApp
 
     prefix = " ".join(map(str, args.prefix)) if args.prefix else None

@@ -6,6 +6,10 @@ tree index: bounds and incumbents are computed for the rows on screen only, a fi
 an id range (prefix filters: two integers), a range and a decision set (decision filters,
 rows counted and found from the index's block counts), or one int64 array of kept ids, and the
 re-check's findings arrive as a sorted array of wrong ids that grows chunk by chunk.
+
+A trail opened block by block (`blocks` set) has `LazyColumn`s and a `LazyTreeIndex`, so the
+same code serves it; only filters that read every node in their range are bounded
+(`BLOCK_SCAN_LIMIT`), and its re-check, `why` and statistics stream over the blocks.
 """
 
 from __future__ import annotations
@@ -18,6 +22,7 @@ from numpy.typing import NDArray
 
 from tracer.analysis import (
     DecisionRanks,
+    FilterError,
     NodeFilter,
     StopCondition,
     TreeIndex,
@@ -27,13 +32,19 @@ from tracer.analysis import (
     parse_filter,
 )
 from tracer.base import COMPLETE, DECISION_NAMES, Trail, bound_values
+from tracer.trails import BlockFile
 
 #: Status shown for a trail without an end frame that is being followed.
 LIVE = "live"
 #: Status shown for a trail without an end frame that is not followed (crashed or cut).
 OPEN = "no end"
+#: Status shown while a trail read block by block is still being indexed.
+INDEXING = "indexing"
 #: Node ids the re-check handles per background step (marks appear after each).
 RECHECK_STEP = 1 << 16
+#: Most nodes a filter may read one by one (a depth or ratio clause) in a trail opened block by
+#: block; a prefix clause narrows the range first.
+BLOCK_SCAN_LIMIT = 20_000_000
 
 
 class RowView:
@@ -56,6 +67,7 @@ class RowView:
         ranks: DecisionRanks | None = None,
     ) -> None:
         self.ids_array = ids
+        self._kept: NDArray[np.int64] | None = ids
         self.ranks = ranks if ids is None else None
         self.lo, self.hi = (lo, hi) if ids is None else (0, 0)
         self._base = ranks.rank(lo) if ranks is not None else 0
@@ -107,10 +119,12 @@ class RowView:
         return inside and (self.ranks is None or self.ranks.keeps(node))
 
     def kept(self) -> NDArray[np.int64] | None:
-        """Every kept id as an array, or None when the rows are a plain range."""
+        """Every kept id as an array (made once), or None when the rows are a plain range."""
         if self.ids_array is None and self.ranks is None:
             return None
-        return self.ids(0, len(self))
+        if self._kept is None:
+            self._kept = self.ids(0, len(self))
+        return self._kept
 
 
 @dataclass(frozen=True)
@@ -128,12 +142,22 @@ class ViewerModel:
         trail: the trail (a live one grows through `replace_trail`).
         index: its tree index (built here when not given).
         live: whether the trail is being followed as it grows.
+        blocks: the block file behind a trail opened block by block (then `trail` and
+            `index` are its `lazy_view`).
     """
 
-    def __init__(self, trail: Trail, index: TreeIndex | None = None, *, live: bool = False) -> None:
+    def __init__(
+        self,
+        trail: Trail,
+        index: TreeIndex | None = None,
+        *,
+        live: bool = False,
+        blocks: BlockFile | None = None,
+    ) -> None:
         self.trail = trail
         self.index = index if index is not None else TreeIndex(trail.columns, trail.best)
         self.live = live
+        self.blocks = blocks
         self.wrong_ids: NDArray[np.int64] = np.zeros(0, dtype=np.int64)
         self.checked = 0
         self.completions: NDArray[np.float64] | None = None
@@ -208,21 +232,44 @@ class ViewerModel:
             lo, hi = kept_range(node_filter, self.index)
             codes = frozenset.intersection(*node_filter.decisions)
             return RowView(lo, hi, ranks=self.index.decision_ranks(codes))
+        if self.blocks is not None and (node_filter.depths or node_filter.ratios):
+            lo, hi = kept_range(node_filter, self.index)
+            if hi - lo > BLOCK_SCAN_LIMIT:
+                raise FilterError(
+                    f"this filter reads each of the {hi - lo:,} nodes in its range, more than "
+                    f"{BLOCK_SCAN_LIMIT:,} in a trail read block by block: narrow it with "
+                    "'under' a path first",
+                    0,
+                )
         return RowView(0, 0, kept_ids(node_filter, self.trail, self.index, self.wrong_ids))
 
-    def replace_trail(self, trail: Trail, index: TreeIndex) -> None:
-        """Take a grown snapshot of a live trail (the filter is applied again)."""
+    def replace_trail(self, trail: Trail, index: TreeIndex) -> str | None:
+        """Take a grown snapshot of a live trail (the filter is applied again).
+
+        Returns why the filter was dropped, when it no longer applies to the grown trail.
+        """
         self.trail = trail
         self.index = index
-        self.rows = self._rows_for(self.filter)
         if trail.end is not None:
             self.live = False
+        try:
+            self.rows = self._rows_for(self.filter)
+        except FilterError as exc:
+            self.filter = NodeFilter()
+            self.rows = self._rows_for(self.filter)
+            return f"filter dropped: {exc}"
+        return None
 
     @property
     def status(self) -> str:
-        """complete, interrupted, limit, live, or "no end" for a trail that just stops."""
+        """complete, interrupted, limit, live, "indexing" while a trail read block by block
+        is indexed to its end, or "no end" for a trail that just stops."""
         if self.trail.end is not None:
             return self.trail.end.status
+        if self.blocks is not None and self.blocks.indexing:
+            _, done, size = self.blocks.progress
+            if done < size:
+                return INDEXING
         return LIVE if self.live else OPEN
 
     @property
@@ -297,6 +344,8 @@ class ViewerModel:
     def run_until(self, condition: StopCondition, node: int, direction: int) -> int | None:
         """The next node (in the rows shown) where the condition holds, or None."""
         rows = self.rows
+        if self.blocks is not None and rows.ranks is not None:
+            return self._run_over_ranks(condition, node, direction)
         kept = rows.kept()
         found = next_match(
             condition,
@@ -310,6 +359,21 @@ class ViewerModel:
         if found is None or kept is not None:
             return found
         return found if rows.lo <= found < rows.hi else None
+
+    def _run_over_ranks(self, condition: StopCondition, node: int, direction: int) -> int | None:
+        """`run_until` over decision-filtered rows of a block file: matches are found in
+        visit order and skipped until one is kept (no array of every kept id)."""
+        rows = self.rows
+        found: int | None = node
+        while found is not None:
+            found = next_match(
+                condition, self.trail, self.index, found, direction, wrong_ids=self.wrong_ids
+            )
+            if found is not None and (found < rows.lo or found >= rows.hi):
+                return None
+            if found is not None and rows.holds(found):
+                return found
+        return None
 
     def decision_name(self, node: int) -> str:
         """The recorded decision's word."""

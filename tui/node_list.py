@@ -1,9 +1,11 @@
 """The node list: every kept node as one row, drawn from the numpy columns on demand.
 
 One `ScrollView` whose virtual height is the number of rows; `render_line` draws only the
-lines on screen. Rows are formatted a block at a time (one vectorised read of the columns
-for 64 rows) into an LRU cache of strips, cleared when the rows, the width, the styles or
-the re-check's marks change. There is never a widget or a Python object per node.
+lines on screen. A line not yet formatted is formatted with the rest of the window below it
+(one vectorised read of the columns for at most `BLOCK` rows, none off screen) into an LRU
+cache of strips, cleared when the rows, the width, the styles or the re-check's marks
+change. Moving the cursor repaints only the two rows it leaves and enters. There is never a
+widget or a Python object per node.
 """
 
 from __future__ import annotations
@@ -29,7 +31,7 @@ from textual.widgets import Static
 from tracer.base import DECISION_NAMES, LINK_IN, LINK_OUT, PARTIAL, TREE, is_absent
 from tui.model import ViewerModel
 
-#: Rows formatted together (one vectorised read of the columns).
+#: Most rows formatted together (one vectorised read of the columns).
 BLOCK = 64
 #: Widths of the fixed columns (the path takes what is left).
 _NUM = 8
@@ -80,7 +82,9 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
     NodeList > .node-list--muted { color: $text-muted; }
     """
 
-    cursor_row: reactive[int] = reactive(0, always_update=True)
+    # No repaint of the whole list when the cursor moves: `watch_cursor_row` repaints the
+    # two rows concerned, and a scroll repaints the window itself.
+    cursor_row: reactive[int] = reactive(0, always_update=True, repaint=False)
 
     class Picked(Message):
         """A row was clicked: move the cursor to `node`."""
@@ -244,16 +248,18 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
             return Strip.blank(width, styles["base"])
         strip = self._cache.get(row)
         if strip is None or strip.cell_length != width:
-            self._format_block(row - row % BLOCK, width)
+            bottom = self.scroll_offset.y + self.size.height
+            self._format_rows(row, min(max(bottom, row + 1), row + BLOCK), width)
             strip = self._cache.get(row)
             assert strip is not None
         if row == self.cursor_row:
             return strip.apply_style(styles["cursor"])
         return strip
 
-    def _format_block(self, start: int, width: int) -> None:
+    def _format_rows(self, start: int, stop: int, width: int) -> None:
+        """Format rows [start, stop) into the cache (the rows on screen, read at once)."""
         model = self.model
-        ids = model.rows.ids(start, start + BLOCK)
+        ids = model.rows.ids(start, stop)
         trail = model.trail
         integral = trail.header.instance.integral
         cols = trail.columns

@@ -4,7 +4,9 @@ A modal screen repaints the whole main screen when it closes and moves the bindi
 another screen; a prompt line takes the work line's place while it is open, so opening and
 closing it repaints only that line (and whatever the typed value changes). Input is checked
 here (a filter parses, an id is in the trail) before the app is handed the value, and the
-error is shown beside the input.
+error is shown beside the input. Moving the focus elsewhere in the screen (a click on the
+node list or the map) closes an open prompt as escape does; the app losing the terminal's
+focus does not (nothing in the screen takes it).
 """
 
 from __future__ import annotations
@@ -16,6 +18,7 @@ from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal
+from textual.events import DescendantBlur
 from textual.widget import Widget
 from textual.widgets import Input, Label, Static
 
@@ -119,6 +122,16 @@ class PromptBar(Horizontal):
 
     def action_cancel(self) -> None:
         self._close(None)
+
+    def focus_left(self) -> bool:
+        """Whether a widget outside this prompt has the screen's focus."""
+        focused = self.screen.focused
+        return focused is not None and self not in focused.ancestors_with_self
+
+    def on_descendant_blur(self, event: DescendantBlur) -> None:
+        """The input lost the focus: close as escape does if it went elsewhere in the screen."""
+        if self.is_open and self.focus_left():
+            self.action_cancel()
 
     def _close(self, value: Any) -> None:
         done, self._done = self._done, None

@@ -82,6 +82,7 @@ def serve_view(args: argparse.Namespace) -> int:
         view_argv += ["--prefix", " ".join(map(str, args.prefix))]
     if args.filter:
         view_argv += ["--filter", args.filter]
+    view_argv += ["--memory-mb", str(args.memory_mb)]
     return serve(view_argv, f"prunetrail view {Path(args.trail).name}", args.host, args.port)
 
 

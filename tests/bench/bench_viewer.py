@@ -117,8 +117,12 @@ async def drive(app: Any, viewer: bool, repeats: int) -> dict[str, Any]:
         out["rss_after_keys_mb"] = _rss_mb()
         if viewer:
             model = app.model
-            out["columns_mb"] = sum(a.nbytes for a in model.trail.columns.values()) / 1e6
-            out["index_mb"] = (model.index.parent.nbytes + model.index.end.nbytes) / 1e6
+            if model.blocks is None:
+                out["columns_mb"] = sum(a.nbytes for a in model.trail.columns.values()) / 1e6
+                out["index_mb"] = (model.index.parent.nbytes + model.index.end.nbytes) / 1e6
+            else:  # a trail read block by block holds only its cache of decoded blocks
+                out["columns_mb"] = model.blocks.cache_peak / 1e6
+                out["index_mb"] = model.blocks.index.table.nbytes / 1e6
             out["rechecked"] = model.checked
     out["peak_rss_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1e3
     return out

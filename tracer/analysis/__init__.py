@@ -1,5 +1,6 @@
 from tracer.analysis.compare import Comparison, Difference, InstanceMismatchError, compare_trails
 from tracer.analysis.layout import LAYOUT_MAX_CITIES, CityLayout, city_layout, scaled_layout
+from tracer.analysis.lazy_tree import LazyDecisionRanks, LazyTreeIndex, lazy_view
 from tracer.analysis.narrate import (
     TERM_LABELS,
     Step,
@@ -71,6 +72,8 @@ __all__ = [
     "FilterError",
     "Finding",
     "InstanceMismatchError",
+    "LazyDecisionRanks",
+    "LazyTreeIndex",
     "NodeFilter",
     "OracleSizeError",
     "RecheckReport",
@@ -91,6 +94,7 @@ __all__ = [
     "in_memory_bytes",
     "kept_ids",
     "kept_range",
+    "lazy_view",
     "narrate",
     "next_match",
     "node_step",

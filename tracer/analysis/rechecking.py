@@ -46,6 +46,7 @@ from tracer.analysis._recheck_sets import (
     tree_weights,
     word_count,
 )
+from tracer.analysis.lazy_tree import LazyTreeIndex
 from tracer.analysis.tree_index import ORPHAN, ROOT, TreeIndex
 from tracer.base import (
     BOUND,
@@ -65,6 +66,8 @@ from tracer.base import (
     PI,
     TREE,
     TREE_LINKS,
+    VISIT,
+    BlockSource,
     Decision,
     Trail,
     bound_values,
@@ -587,6 +590,11 @@ class Tally:
         self._wrong: list[NDArray[np.int64]] = []
         self._missed: list[NDArray[np.int64]] = []
 
+    @property
+    def latest_wrong(self) -> NDArray[np.int64]:
+        """The wrong ids found by the last `add`, ascending."""
+        return self._wrong[-1] if self._wrong else np.zeros(0, dtype=np.int64)
+
     def add(self, rule: CheckRule, lo: int, hi: int) -> None:
         """Check the rows [lo, hi) of the rule's trail (or window) and count them in."""
         report, first = self.report, self.first
@@ -680,7 +688,35 @@ def recompute_node(trail: Trail, index: TreeIndex, node: int) -> dict[str, float
     """
     if not 0 <= node < trail.count:
         raise IndexError(f"node {node} is not in the trail (0..{trail.count - 1})")
+    if isinstance(index, LazyTreeIndex):
+        return _recompute_in_window(trail, index, node)
     return recompute_row(CheckRule(trail, index), node)
+
+
+def _recompute_in_window(trail: Trail, index: LazyTreeIndex, node: int) -> dict[str, Any]:
+    """`recompute_node` on a trail read block by block: in a window of the search's path
+    before the node, the node and its lookahead, as the streaming re-check cuts them."""
+    before = node - 1
+    while before >= 0 and int(index.parent[before]) == ORPHAN:
+        before -= 1
+    carried = index.ancestors(before) if before >= 0 else []
+    ids = np.array([*carried, *range(node, min(node + 2, trail.count))], dtype=np.int64)
+    small, small_index = window_trail(trail, {n: c[ids] for n, c in trail.columns.items()}, ids)
+    seeded = len(carried)
+    rule = CheckRule(small, small_index, total=trail.count)
+    return recompute_row(rule.view(small, small_index, ids, ids, seeded), seeded)
+
+
+def window_trail(
+    source: Trail | BlockSource, columns: dict[str, NDArray[Any]], ids: NDArray[np.int64]
+) -> tuple[Trail, TreeIndex]:
+    """Some rows of a trail (ids `ids`, ascending) as a small trail with its own tree index,
+    whose incumbent lookups use trail ids (or visit positions), so they agree with the whole
+    trail's."""
+    positions = columns.get(VISIT, ids)
+    index = TreeIndex({**columns, VISIT: positions}, source.best)
+    small = Trail(source.path, source.header, columns, source.best, source.end, source.notice)
+    return small, index
 
 
 def recompute_row(rule: CheckRule, node: int) -> dict[str, float | int | None]:

@@ -25,11 +25,11 @@ import numpy as np
 from numpy.typing import NDArray
 
 from tracer.analysis.oracle import CompletionTable, best_completions
-from tracer.analysis.rechecking import CheckRule, RecheckReport, Tally, chunk_rows
+from tracer.analysis.rechecking import CheckRule, RecheckReport, Tally, chunk_rows, window_trail
 from tracer.analysis.stats import DepthStats, DepthTally
 from tracer.analysis.tree_index import ORPHAN, TreeIndex
 from tracer.analysis.why import HARMFUL_SHOWN, Follow, Harm, WhyReport, judged, reference_cycle
-from tracer.base import VISIT, BlockSource, NodeBlock, Trail, TrailHeader
+from tracer.base import BlockSource, NodeBlock, Trail, TrailHeader
 
 __all__ = [
     "Window",
@@ -149,9 +149,7 @@ def windows(source: BlockSource, rows: int | None = None) -> Iterator[Window]:
             ]
         )
         seeded = len(carry_ids)
-        positions = cols.get(VISIT, ids)
-        index = TreeIndex({**cols, VISIT: positions}, source.best)
-        trail = Trail(source.path, source.header, cols, source.best, source.end, source.notice)
+        trail, index = window_trail(source, cols, ids)
         yield Window(trail, index, ids, seeded, count)
         stack = _stack(index, seeded + count)
         carry = {name: column[stack] for name, column in cols.items()}
@@ -182,6 +180,7 @@ def stream_recheck(
     on_progress: Callable[[int, int], None] | None = None,
     strict: bool = False,
     rows: int | None = None,
+    on_wrong: Callable[[NDArray[np.int64], int], None] | None = None,
 ) -> RecheckReport:
     """`recheck` over a block source: the same report, in memory bounded by one window.
 
@@ -189,6 +188,8 @@ def stream_recheck(
         source: the trail, block by block.
         start, stop, first, on_progress, strict: as for `recheck`.
         rows: records per window (default `chunk_rows`, as the in-memory check uses).
+        on_wrong: called after each window with its wrong ids and the id checked up to
+            (a viewer marks them as they are found).
     """
     total = source.count
     stop = total if stop is None else min(stop, total)
@@ -209,6 +210,8 @@ def stream_recheck(
             tally.add(rule, rule.row(a), rule.row(b))
             if on_progress is not None:
                 on_progress(b - start, stop - start)
+            if on_wrong is not None:
+                on_wrong(tally.latest_wrong, b)
         if hi >= stop:
             break
         stack = _stack(window.index, window.seeded + window.count)

@@ -51,6 +51,10 @@ class TreeIndex:
         self.count = len(self.depth)
         self.parent, self.end, self.repeated = tree_shape(self.depth, self.city)
         self._cum = _block_counts(self.decision)
+        self._set_best(best)
+
+    def _set_best(self, best: Sequence[BestUpdate]) -> None:
+        """Keep the incumbent updates for `incumbent_at`, ordered by when they took effect."""
         ordered = sorted(best, key=lambda b: b.at)
         self._best_at = np.array([b.at for b in ordered], dtype=np.int64)
         self._best_length = np.array([b.length for b in ordered], dtype=np.float64)

@@ -18,6 +18,7 @@ from tracer.base.header import (
 from tracer.base.instance import Instance, explicit_instance
 from tracer.base.limits import (
     DECODED_ALLOWANCE,
+    DEFAULT_MEMORY_MB,
     MATRIX_MAX_CITIES,
     MAX_BLOCK_NODES,
     MAX_COLUMNS,
@@ -121,6 +122,7 @@ __all__ = [
     "DECISION_COLUMNS",
     "DECISION_NAMES",
     "DECODED_ALLOWANCE",
+    "DEFAULT_MEMORY_MB",
     "DEPTH",
     "DESCENDING",
     "END",

@@ -47,6 +47,14 @@ PENALTIES = "penalties"
 OUR_BOUNDS = (TREE_LINKS, PENALTIES, NO_BOUND)
 
 _LENGTH_DTYPES = ("<i4", "<i8", "<f8")
+#: Every column dtype text a header may give: a number of at most 8 bytes, little-endian or
+#: with no byte order. Checked before numpy sees the text, so file text never reaches
+#: `np.dtype` (which warns on, or misreads, some of the strings it knows).
+_COLUMN_DTYPES = frozenset(
+    order + code
+    for order in ("<", "|", "=", "")
+    for code in ("i1", "i2", "i4", "i8", "u1", "u2", "u4", "u8", "f2", "f4", "f8")
+)
 
 
 def bound_name_clash(name: str) -> str | None:
@@ -320,15 +328,12 @@ def _columns(raw: Any, n: int) -> tuple[Column, ...]:
         )
         _need(len(item) == 2 or item[2] == n, f"row column {name} must hold n = {n} values")
         _need(all(c.name != name for c in out), f"column {name!r} given twice")
-        try:
-            dtype = np.dtype(dtype_str)
-        except TypeError:
-            raise HeaderError(f"column {name}'s dtype {dtype_str!r} is not a numpy dtype") from None
         _need(
-            dtype.kind in "iuf" and dtype.itemsize <= 8 and dtype.byteorder in "<|=",
-            f"column {name}'s dtype {dtype_str!r} must be a little-endian number",
+            dtype_str in _COLUMN_DTYPES,
+            f"column {name}'s dtype {dtype_str!r} must be a little-endian number's dtype "
+            "string, such as '|u1', '<i4' or '<f8'",
         )
-        dtype = dtype.newbyteorder("<")
+        dtype = np.dtype(dtype_str).newbyteorder("<")
         out.append(Column(name, np.dtype((dtype, (n,))) if len(item) == 3 else dtype))
     for name in REQUIRED_COLUMNS:
         _need(any(c.name == name for c in out), f"columns must include {name!r}")

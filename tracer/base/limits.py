@@ -83,3 +83,7 @@ MAX_LIST_ITEMS = MAX_TRAIL_CITIES
 MAX_HEADER_ITEMS = MAX_TRAIL_CITIES * MAX_TRAIL_CITIES
 #: Node ids in a JSON Lines trace are signed 64-bit whole numbers.
 MIN_NODE_ID, MAX_NODE_ID = -(2**63), 2**63 - 1
+#: The default memory setting (MB) of the commands that can read a trail block by block: a
+#: trail whose in-memory analysis needs more (`in_memory_bytes`) is read block by block. A
+#: quarter of a 8 GB machine, leaving room for the rest.
+DEFAULT_MEMORY_MB = 2048

@@ -24,7 +24,7 @@ from tracer.analysis import (
 from tracer.base import DECISION_NAMES, Decision, InputError, Instance, Trail
 from tracer.cli import _plot
 from tracer.cli._console import emit_json, err, out
-from tracer.cli.check import add_memory_option, open_sized
+from tracer.cli.check import add_memory_option, sized_trace
 from tracer.trails import BlockFile
 
 #: Improvements listed in the human report (all of them go to --json).
@@ -81,8 +81,13 @@ def _table(instance: Instance, quiet: bool) -> CompletionTable | None:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Compute and print a trail's per-depth figures."""
-    trail = open_sized(args.trail, args.memory_mb)
+    """Compute and print a trace's per-depth figures."""
+    with sized_trace(args.trail, args.memory_mb) as trail:
+        return _stats(args, trail)
+
+
+def _stats(args: argparse.Namespace, trail: Trail | BlockFile) -> int:
+    """Compute and print an opened trace's per-depth figures; the exit status."""
     if trail.notice and not args.json:
         err.print(Text(f"note: {trail.notice}", style="yellow"))
     table = None if args.no_oracle else _table(trail.header.instance, args.json)
@@ -94,8 +99,7 @@ def run(args: argparse.Namespace) -> int:
         )
         stats = depth_stats(trail, completions)
     else:
-        with trail:
-            stats = stream_stats(trail, table)
+        stats = stream_stats(trail, table)
     if args.json:
         emit_json({"trail": args.trail, "notice": trail.notice, **stats.to_json()})
         return 0

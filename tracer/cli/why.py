@@ -32,7 +32,7 @@ from tracer.base import COMPLETE, INTERRUPTED, Instance, PrunetrailError, Trail
 from tracer.cli._args import count
 from tracer.cli._console import emit_json, err, out
 from tracer.cli._signals import stop_requests
-from tracer.cli.check import add_memory_option, open_sized
+from tracer.cli.check import add_memory_option, sized_trace
 from tracer.formats import format_instance, load_tour
 from tracer.search import SearchSettings, make_start, run_search
 from tracer.trails import BlockFile
@@ -102,8 +102,13 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    """Explain a trail against a reference tour and report."""
-    trail = open_sized(args.trail, args.memory_mb)
+    """Explain a trace against a reference tour and report."""
+    with sized_trace(args.trail, args.memory_mb) as trail:
+        return _why(args, trail)
+
+
+def _why(args: argparse.Namespace, trail: Trail | BlockFile) -> int:
+    """Explain an opened trace against a reference tour and report; the exit status."""
     if trail.count == 0:
         raise PrunetrailError(f"{args.trail}: the trail holds no nodes")
     if trail.notice and not args.json:
@@ -120,8 +125,7 @@ def run(args: argparse.Namespace) -> int:
         index = TreeIndex(trail.columns, trail.best)
         report = explain(trail, index, tour=tour, table=table, harmful_shown=args.harmful)
     else:
-        with trail:
-            report = stream_explain(trail, tour=tour, table=table, harmful_shown=args.harmful)
+        report = stream_explain(trail, tour=tour, table=table, harmful_shown=args.harmful)
     exported = None
     if args.export_remainder:
         exported = _export(instance, report, Path(args.export_remainder))

@@ -6,7 +6,7 @@ from tracer.trails.jsonl import (
     import_jsonl,
     stream_jsonl,
 )
-from tracer.trails.lazy import BlockFile, open_blocks
+from tracer.trails.lazy import BlockFile, LazyColumn, open_blocks
 from tracer.trails.opening import Follower, follow_trail, open_trail
 from tracer.trails.reader import CorruptTrailError, TrailFollower
 from tracer.trails.writer import TrailWriter
@@ -20,6 +20,7 @@ __all__ = [
     "Follower",
     "ImportSummary",
     "JsonlFollower",
+    "LazyColumn",
     "TrailFollower",
     "TrailWriter",
     "follow_trail",

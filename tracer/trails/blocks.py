@@ -286,6 +286,11 @@ class BlockScanner:
         self._settle(corrupt)
         return self.index
 
+    @property
+    def bytes_read(self) -> int:
+        """How far into the file the scan has read."""
+        return self._handle.tell()
+
     def close(self) -> None:
         """Release the file."""
         self._handle.close()

@@ -243,6 +243,16 @@ class _Columns:
         self.link_city[1, rows] = batch.link_city[LINK_OUT]
         self.count += k
 
+    def rows_from(self, lo: int) -> _Columns:
+        """The rows from `lo` on, as columns of their own (views), for a lane without paths."""
+        part = _Columns(0)
+        part.base, part.count = self.base + lo, self.count - lo
+        for name in ("ident", "parent_id", "city", "decision", "line"):
+            setattr(part, name, getattr(self, name)[lo : self.count])
+        part.lengths = self.lengths[:, lo : self.count]
+        part.link_city = self.link_city[:, lo : self.count]
+        return part
+
     def view(self, name: str) -> NDArray[Any]:
         """A column of the rows so far (a view): a field, a length key or a link's city."""
         if name in _LENGTH_KEYS:
@@ -807,6 +817,17 @@ def _parse(path: Path) -> _Parsed:
 # -- relations between lines, vectorised -----------------------------------------------------
 
 
+def _visits(
+    sorted_ids: NDArray[np.int64], id_order: NDArray[np.int64] | None, ids: NDArray[np.int64]
+) -> NDArray[np.int64]:
+    """Visit position of each of `ids`, or -1 where no node has it, given every node's id in
+    increasing order and the visit position of each (`id_order` None: ids grow with visits)."""
+    if not len(sorted_ids):
+        return np.full(len(ids), -1, dtype=np.int64)
+    pos = np.minimum(np.searchsorted(sorted_ids, ids), len(sorted_ids) - 1)
+    return np.where(sorted_ids[pos] == ids, pos if id_order is None else id_order[pos], -1)
+
+
 class _Tree:
     """Depths and pre-order ids of the parsed nodes (all indexed by visit position), every
     relation between lines checked: by one walk for a trace already in pre-order with ids
@@ -859,10 +880,7 @@ class _Tree:
 
     def visit_of(self, ids: NDArray[np.int64]) -> NDArray[np.int64]:
         """Visit position of each id, or -1 where no node has it."""
-        if self.count == 0:
-            return np.full(len(ids), -1, dtype=np.int64)
-        pos = np.minimum(np.searchsorted(self.sorted_ids, ids), self.count - 1)
-        return np.where(self.sorted_ids[pos] == ids, self.id_order[pos], -1)
+        return _visits(self.sorted_ids, self.id_order, ids)
 
     def level(self, d: int) -> NDArray[np.int64]:
         """Visit positions of the nodes at depth d, in visit order."""
@@ -1142,7 +1160,7 @@ def _build(parsed: _Parsed) -> Trail:
     layout = extent.layout(parsed.instance, in_preorder, parsed.best)
     pre = None if in_preorder else tree.pre
     columns = _trail_columns(parsed.nodes, tree.depth, tree.city, lengths, layout, pre, tree.n)
-    best = _updates(parsed, tree)
+    best = _updates(parsed, tree.visit_of, tree.pre)
     solver = parsed.solver
     if not in_preorder:
         solver = replace(solver, visit_order=True)
@@ -1152,14 +1170,19 @@ def _build(parsed: _Parsed) -> Trail:
     return Trail(parsed.path, header, columns, best, end, parsed.notice)
 
 
-def _updates(parsed: _Parsed, tree: _Tree) -> list[BestUpdate]:
+def _updates(
+    parsed: _Parsed,
+    visit_of: Callable[[NDArray[np.int64]], NDArray[np.int64]],
+    pre: NDArray[np.int64] | None,
+) -> list[BestUpdate]:
     """Incumbent updates: `at` is the visit position of the first node to see each one.
 
     A tour found at a node is in force from the next node visited on; a tour found outside
-    the tree (id null) from the next node after the line that reports it.
+    the tree (id null) from the next node after the line that reports it. `visit_of` gives
+    ids' visit positions, `pre` each visit's pre-order id (None: visits are in pre-order).
     """
     ids = np.array([0 if b.ident is None else b.ident for b in parsed.best], dtype=np.int64)
-    visit = tree.visit_of(ids)
+    visit = visit_of(ids)
     out: list[BestUpdate] = []
     for b, v in zip(parsed.best, visit.tolist(), strict=True):
         if b.ident is None:
@@ -1169,8 +1192,91 @@ def _updates(parsed: _Parsed, tree: _Tree) -> list[BestUpdate]:
             raise InputError(
                 parsed.path, f"'id': no node before this line has id {b.ident}", line=b.line
             )
-        out.append(BestUpdate(at=v + 1, node=int(tree.pre[v]), length=b.length, tour=b.tour))
+        node = v if pre is None else int(pre[v])
+        out.append(BestUpdate(at=v + 1, node=node, length=b.length, tour=b.tour))
     return sorted(out, key=lambda u: u.at)
+
+
+class _GrowingTrail:
+    """A followed trace's trail, grown by appending while the trace is in pre-order.
+
+    Each update walks only the node rows read since the last one, on from where the walk
+    stopped (`_jsonl_stream`), and appends them in the column layout so far. Where the walk
+    cannot vouch for the rows (another order, ids that do not grow, paths, more than
+    `MAX_WALK_CITIES` cities, a problem to report) the trail is rebuilt from every row by
+    `_build` at every update from then on, since a new node can renumber old ones; where
+    the layout must change (a wider length, a first bound), it is rebuilt once and grows on.
+    """
+
+    def __init__(self, n: int) -> None:
+        self.state: WalkState | None = WalkState(n) if n <= MAX_WALK_CITIES else None
+        self.extent = _Extent()
+        self.counts = np.zeros(len(DECISION_NAMES), dtype=np.int64)
+        self.rows = 0  # node rows walked
+        self.store: dict[str, NDArray[Any]] = {}  # the columns, with room to grow
+        self.layout: tuple[Column, ...] | None = None
+
+    def update(self, parsed: _Parsed) -> tuple[Trail, bool]:
+        """The trail of every row read, and whether it only appended rows to the last one.
+
+        Raises:
+            InputError: as `read_jsonl` raises it for the lines read so far.
+        """
+        try:
+            grown = self._grow(parsed)
+            if grown is not None:
+                return grown, True
+            trail = _build(parsed)
+        except InputError:
+            self.state = None  # the walk went past rows that were not kept
+            raise
+        if self.state is not None:  # still in pre-order: grow on from the rebuilt trail
+            self.layout = trail.header.columns
+            self.store = {}
+            self._append(trail.columns)
+        return trail, False
+
+    def _grow(self, parsed: _Parsed) -> Trail | None:
+        """The trail with the new rows appended, or None where it must be rebuilt."""
+        nodes, instance = parsed.nodes, parsed.instance
+        if self.state is None or len(nodes.path_node):
+            self.state = None
+            return None
+        new = nodes.rows_from(self.rows)
+        depth, why = walk(self.state, new.view("ident"), new.view("parent_id"), new.view("city"))
+        if why != WALKED:
+            self.state = None
+            return None
+        city = new.view("city").astype(np.int64)
+        lengths, misplaced = _closed_lengths(new, depth, city, instance)
+        if misplaced is not None:
+            self.state = None
+            return None
+        self.extent.add(lengths)
+        self.counts += np.bincount(new.view("decision"), minlength=len(DECISION_NAMES))
+        self.rows = nodes.count
+        layout = self.extent.layout(instance, True, parsed.best)
+        if layout != self.layout:
+            return None
+        ident = nodes.view("ident")
+        best = _updates(parsed, lambda ids: _visits(ident, None, ids), None)
+        self._append(_trail_columns(new, depth, city, lengths, layout, None, instance.n))
+        header = TrailHeader(instance=instance, solver=parsed.solver, columns=layout)
+        columns = {name: values[: self.rows] for name, values in self.store.items()}
+        end = _end_info(parsed.status, self.rows, self.counts, best)
+        return Trail(parsed.path, header, columns, best, end, parsed.notice)
+
+    def _append(self, columns: dict[str, NDArray[Any]]) -> None:
+        """Put `columns` after the rows held (room doubles), so that `rows` are held."""
+        start = self.rows - len(next(iter(columns.values())))
+        if not self.store or len(next(iter(self.store.values()))) < self.rows:
+            room = max(self.rows, 2 * start, 1 << 12)
+            grown = {k: np.empty((room, *v.shape[1:]), dtype=v.dtype) for k, v in columns.items()}
+            for k, v in self.store.items():
+                grown[k][:start] = v[:start]
+            self.store = grown
+        for k, v in columns.items():
+            self.store[k][start : self.rows] = v
 
 
 class JsonlFollower:
@@ -1178,8 +1284,9 @@ class JsonlFollower:
     trail: `poll()` reads the lines appended since the last call.
 
     Each poll parses only the new whole lines (an unfinished last line waits for the next
-    poll) and rebuilds `trail` from everything read, since a new node can change the
-    pre-order ids of a search that is not depth-first.
+    poll); a trace in depth-first pre-order grows its trail by the new rows alone, any
+    other is rebuilt from everything read, since a new node can change the pre-order ids of
+    a search that is not depth-first (`_GrowingTrail`).
     """
 
     def __init__(self, path: str | Path) -> None:
@@ -1189,6 +1296,7 @@ class JsonlFollower:
         self._tail = b""
         self._number = 0
         self._trail: Trail | None = None
+        self._growing: _GrowingTrail | None = None
         self._best_seen = 0
 
     def poll(self) -> tuple[int, int, list[BestUpdate]]:
@@ -1204,6 +1312,7 @@ class JsonlFollower:
         """
         data = self._handle.read()
         before = self._trail
+        appended = False
         if data:
             data = self._tail + data
             cut = data.rfind(b"\n")
@@ -1215,16 +1324,22 @@ class JsonlFollower:
             if len(self._tail) > limit:
                 message = f"line is longer than {limit} bytes"
                 raise InputError(self.path, message, line=self._number + 1)
-            if cut >= 0 and self._reading.parser.instance is not None:
-                self._trail = _build(self._reading.parsed())
+            instance = self._reading.parser.instance
+            if cut >= 0 and instance is not None:
+                if self._growing is None:
+                    self._growing = _GrowingTrail(instance.n)
+                self._trail, appended = self._growing.update(self._reading.parsed())
         trail = self._trail
         if trail is None or trail is before:
             return (0 if before is None else before.count), 0, []
         new_best = trail.best[self._best_seen :]
         self._best_seen = len(trail.best)
         old = 0 if before is None else before.count
-        kept = before is not None and all(
-            np.array_equal(trail.columns[c][:old], before.columns[c]) for c in before.columns
+        kept = before is not None and (
+            appended
+            or all(
+                np.array_equal(trail.columns[c][:old], before.columns[c]) for c in before.columns
+            )
         )
         return (old, trail.count - old, new_best) if kept else (0, trail.count, trail.best)
 

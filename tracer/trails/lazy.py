@@ -17,7 +17,7 @@ from collections import OrderedDict
 from collections.abc import Iterator, Sequence
 from pathlib import Path
 from types import TracebackType
-from typing import Any, BinaryIO
+from typing import Any, BinaryIO, cast
 
 import msgpack
 import numpy as np
@@ -34,6 +34,7 @@ from tracer.base import (
     EndInfo,
     InputError,
     NodeBlock,
+    Trail,
     TrailHeader,
 )
 from tracer.trails.blocks import (
@@ -135,14 +136,23 @@ class BlockFile:
     # -- growing -------------------------------------------------------------------------
 
     def refresh(self, max_bytes: int | None = None) -> int:
-        """Index what was appended to a live file since; returns how many records are new."""
+        """Index what was appended to a live file since; returns how many records are new.
+
+        One thread refreshes; readers on other threads go on meanwhile (the index only
+        grows, row by row), and wait only while the file's attributes are brought up to date.
+        """
         if self._scanner is None:
             return 0
         before = self.count
+        self._scanner.step(max_bytes)
         with self._lock:
-            self._scanner.step(max_bytes)
             self._sync()
         return self.count - before
+
+    @property
+    def indexing(self) -> bool:
+        """Whether the file is still being scanned (not indexed to its end frame)."""
+        return self._scanner is not None and self.end is None and self.corrupt is None
 
     @property
     def progress(self) -> tuple[int, int, int]:
@@ -187,6 +197,23 @@ class BlockFile:
     def cache_limit(self) -> int:
         """The cache's bound in bytes."""
         return self._cache.limit
+
+    def snapshot(self) -> Trail:
+        """The records indexed so far as a `Trail` whose columns are `LazyColumn`s.
+
+        For code that reads rows by id (a viewer, the tree questions); its count stays
+        fixed while the file's index grows, so take a new snapshot after `refresh`.
+        """
+        count = self.count
+        columns = {col.name: LazyColumn(self, col.name, count) for col in self.header.columns}
+        return Trail(
+            self.path,
+            self.header,
+            cast(dict[str, NDArray[Any]], columns),
+            list(self.best),
+            self.end,
+            self.notice,
+        )
 
     @property
     def tree(self) -> BlockTree:
@@ -480,12 +507,17 @@ class BlockTree:
 
 
 def open_blocks(
-    path: str | Path, *, cache_bytes: int = DEFAULT_CACHE_BYTES, use_index: bool = True
+    path: str | Path,
+    *,
+    cache_bytes: int = DEFAULT_CACHE_BYTES,
+    use_index: bool = True,
+    first_bytes: int | None = None,
 ) -> BlockFile:
     """Open a trail file lazily: from the index its writer left, or by scanning it.
 
     A file without a sound index (a live or crashed run, a cut or damaged index) is scanned
-    once; `refresh()` then follows it as it grows.
+    once, or only its first `first_bytes` when given (a viewer shows those while `refresh`
+    indexes the rest); `refresh()` then follows it as it grows.
 
     Raises:
         InputError: the file cannot be opened or does not start with a header.
@@ -496,7 +528,11 @@ def open_blocks(
         return BlockFile(found, None, cache_bytes)
     scanner = BlockScanner(p)
     try:
-        index = scanner.step()
+        index = scanner.step(first_bytes)
+        read = -1
+        while index is None and scanner.bytes_read > read:  # a header longer than first_bytes
+            read = scanner.bytes_read
+            index = scanner.step(first_bytes)
     except BaseException:
         scanner.close()
         raise
@@ -506,3 +542,81 @@ def open_blocks(
             raise InputError(p, "stops inside its header frame: not a complete trail", offset=0)
         raise InputError(p, "empty: no header frame, not a trail")
     return BlockFile(index, scanner, cache_bytes, found if isinstance(found, str) else None)
+
+
+class LazyColumn:
+    """One column of a `BlockFile`, indexed like a numpy array but decoded only where read.
+
+    It answers `len`, `dtype`, an integer, a slice (step 1) and an array of ids; the result
+    is a numpy value or array. It is a stand-in for the arrays of `Trail.columns` where a
+    trail is too large to read whole, so code that reads rows by id works unchanged, while
+    whole-column numpy operations are refused (`np.asarray` raises) rather than
+    decoding gigabytes by accident. Its length is fixed when made (a snapshot of a growing
+    file).
+    """
+
+    def __init__(self, file: BlockFile, name: str, count: int) -> None:
+        col = file.header.column(name)
+        if col is None:
+            raise KeyError(name)
+        self._file = file
+        self.name = name
+        self.dtype: np.dtype[Any] = col.dtype.base
+        self._row_shape: tuple[int, ...] = col.dtype.shape
+        self._count = count
+
+    def __len__(self) -> int:
+        return self._count
+
+    @property
+    def shape(self) -> tuple[int, ...]:
+        """(count, *row shape), as an array's."""
+        return (self._count, *self._row_shape)
+
+    @property
+    def ndim(self) -> int:
+        """1, or 2 for a column of rows (π)."""
+        return 1 + len(self._row_shape)
+
+    def __getitem__(self, key: Any) -> Any:
+        if isinstance(key, slice):
+            lo, hi, step = key.indices(self._count)
+            if step != 1:
+                raise IndexError("a lazy column is sliced with step 1 only")
+            return self._file.column(self.name, lo, max(lo, hi))
+        if isinstance(key, (int, np.integer)):
+            node = int(key) + self._count if key < 0 else int(key)
+            if not 0 <= node < self._count:
+                raise IndexError(f"node {key} is outside 0..{self._count - 1}")
+            return self._file._at(self.name, node)
+        return self._take(np.asarray(key))
+
+    def __array__(self, *args: Any, **kwargs: Any) -> NDArray[Any]:
+        raise TypeError(
+            f"column {self.name!r} of a trail read block by block is read by id range, not whole"
+        )
+
+    def _take(self, ids: NDArray[Any]) -> NDArray[Any]:
+        """The values at `ids` (any order), decoding each block involved once."""
+        if ids.dtype == np.bool_ or not np.issubdtype(ids.dtype, np.integer):
+            raise IndexError("a lazy column is indexed by integer ids")
+        flat = ids.astype(np.int64).ravel()
+        flat = np.where(flat < 0, flat + self._count, flat)
+        out = np.empty((len(flat), *self._row_shape), dtype=self.dtype)
+        if not len(flat):
+            return out.reshape((*ids.shape, *self._row_shape))
+        if int(flat.min()) < 0 or int(flat.max()) >= self._count:
+            raise IndexError(f"ids outside 0..{self._count - 1}")
+        order = np.argsort(flat, kind="stable")
+        ordered = flat[order]
+        first = self._file.index.values("first")
+        lo = self._file.index.block_of(int(ordered[0]))
+        hi = self._file.index.block_of(int(ordered[-1]))
+        cuts = np.searchsorted(ordered, first[lo + 1 : hi + 1])
+        starts = np.concatenate(([0], cuts))
+        stops = np.concatenate((cuts, [len(ordered)]))
+        for block, a, b in zip(range(lo, hi + 1), starts.tolist(), stops.tolist(), strict=True):
+            if a < b:
+                values = self._file._cached(block, self.name)
+                out[order[a:b]] = values[ordered[a:b] - int(first[block])]
+        return out.reshape((*ids.shape, *self._row_shape))

@@ -13,6 +13,7 @@ and a notice saying where it stops.
 
 from __future__ import annotations
 
+import threading
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any, BinaryIO, NamedTuple
@@ -74,6 +75,7 @@ from tracer.base import (
 #: Bytes read from the file at a time (the reader's and the block scan's).
 READ_SIZE = 1 << 20
 _NODE_FRAME_BATCH = 1 << 16
+_THREAD = threading.local()  # per-thread state: the zstd decompressor (`_decompressor`)
 
 
 class CorruptTrailError(InputError):
@@ -385,6 +387,17 @@ def _decode_into(
     return None
 
 
+def _decompressor() -> zstandard.ZstdDecompressor:
+    """This thread's zstd decompressor, made once: a fresh one per column cost about 14% of
+    reading a 10 M-node trail. One per thread, as a decompressor must not be used by two
+    threads at once; each `decompress` call starts a new frame, so a failed one leaves
+    nothing behind."""
+    found: zstandard.ZstdDecompressor | None = getattr(_THREAD, "zstd", None)
+    if found is None:
+        found = _THREAD.zstd = zstandard.ZstdDecompressor()
+    return found
+
+
 def decode_column(
     header: TrailHeader, col: Column, codec: str, data: bytes, count: int
 ) -> NDArray[Any] | str:
@@ -392,7 +405,7 @@ def decode_column(
     size = count * col.dtype.itemsize
     if codec == "zstd":
         try:
-            data = zstandard.ZstdDecompressor().decompress(data, max_output_size=size)
+            data = _decompressor().decompress(data, max_output_size=size)
         except zstandard.ZstdError as exc:
             return f"column {col.name} does not decompress ({exc})"
     if len(data) != size:
