@@ -42,7 +42,7 @@ from tracer.analysis import (
     recompute_node,
 )
 from tracer.base import DECISION_NAMES, ORPHAN, Trail
-from tracer.trails import BlockFile, TrailWriter, open_blocks
+from tracer.trails import BlockFile, LazyColumn, TrailWriter, open_blocks
 from tracer.trails.jsonl import import_jsonl
 from tracer.trails.reader import read_trail
 from tui.app import PrunetrailApp
@@ -62,7 +62,9 @@ def trails(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
     made = root / "made"
     made.mkdir()
     clean = read_trail(solve(made / "clean.trail", "burma14", cutoff=2, max_nodes=40_000))
-    fault = solve(made / "fault.trail", "burma14", cutoff=3, max_nodes=40_000, fault="tree-positions")
+    fault = solve(
+        made / "fault.trail", "burma14", cutoff=3, max_nodes=40_000, fault="tree-positions"
+    )
     penalties = solve(
         made / "pen.trail", "burma14", cutoff=3, bound="penalties", fault="penalty-once"
     )
@@ -128,6 +130,13 @@ def _sample(file: BlockFile, index: TreeIndex, size: int, seed: int = 1) -> list
     return sorted(set(picked))
 
 
+def _same_array(name: str, got: Any, want: Any, what: object) -> None:
+    """A lazy read equals the array's: the same dtype, shape and values (NaN equal)."""
+    got, want = np.asarray(got), np.asarray(want)
+    assert got.dtype == want.dtype and got.shape == want.shape, (name, what)
+    assert np.array_equal(got, want, equal_nan=want.dtype.kind == "f"), (name, what)
+
+
 def _same_values(a: dict[str, Any], b: dict[str, Any]) -> bool:
     """Two dicts of numbers (or None) are equal, NaN equal to NaN."""
 
@@ -168,12 +177,7 @@ def test_lazy_column_equals_the_array(
             array.shape,
             array.ndim,
         ), name
-
-        def same(got: Any, want: Any, what: object) -> None:
-            got, want = np.asarray(got), np.asarray(want)
-            assert got.dtype == want.dtype and got.shape == want.shape, (name, what)
-            assert np.array_equal(got, want, equal_nan=want.dtype.kind == "f"), (name, what)
-
+        same = functools.partial(_same_array, name)
         for i in [0, 1, count - 1, -1, -count, *edges[:10], *rng.integers(0, count, 5).tolist()]:
             same(col[i], array[i], i)
             same(col[np.int64(i)], array[np.int64(i)], i)
@@ -277,8 +281,8 @@ def test_recompute_node_equals_in_memory(
     if kind in ("fault", "penalties", "cut"):
         assert len(wrong), "the planted fault is found"
     rng = np.random.default_rng(5)
-    picks = rng.choice(wrong, min(len(wrong), 25), replace=False) if len(wrong) else []
-    nodes = sorted({*_sample(file, index, 25), *(int(w) for w in picks)})
+    picks = rng.choice(wrong, min(len(wrong), 25), replace=False).tolist() if len(wrong) else []
+    nodes = sorted({*_sample(file, index, 25), *picks})
     for node in nodes:
         got = recompute_node(trail, lazy_index, node)
         want = recompute_node(whole, index, node)
@@ -304,6 +308,7 @@ def _prefix_of(index: TreeIndex, depth: int, most: int | None = None) -> str:
 
 
 def _filter_forms(index: TreeIndex) -> list[str]:
+    """Every filter form of the grammar, with real and absent prefixes, alone and joined."""
     prefix = _prefix_of(index, 2)
     return [
         "",
@@ -365,14 +370,14 @@ def test_filters_and_stops_on_the_lazy_view(
         cond = parse_stops(text)
         for start in starts:
             for direction in (1, -1):
-                for kept in (None, kept_sets[len(starts) % len(kept_sets)]):
-                    got = next_match(
+                for kept in (None, kept_sets[start % len(kept_sets)]):
+                    found = next_match(
                         cond, trail, lazy_index, start, direction, wrong_ids=wrong, kept=kept
                     )
-                    want = next_match(
+                    expected = next_match(
                         cond, whole, index, start, direction, wrong_ids=wrong, kept=kept
                     )
-                    assert got == want, (text, start, direction, kept is None)
+                    assert found == expected, (text, start, direction, kept is None)
 
 
 # -- 5. the viewer's model -------------------------------------------------------------------
@@ -467,9 +472,269 @@ def test_runs_over_decision_rows_equal_in_memory(
         lo, hi = kept_range(blocks.filter, blocks.index)
         starts = [lo, hi - 1, *rng.integers(lo, hi, 4).tolist()]
         for stop_text in stops:
+            if stop_text == "prune" and filter_text == text != "is prune":
+                continue  # prunes never kept, over the whole trail: the next test's case
             cond = parse_stops(stop_text)
             for start in starts:
                 for direction in (1, -1):
                     got = blocks.run_until(cond, start, direction)
                     want = in_memory.run_until(cond, start, direction)
                     assert got == want, (filter_text, stop_text, start, direction)
+
+
+def test_a_run_over_decision_rows_reads_each_node_a_few_times(
+    memory: dict[str, tuple[Trail, TreeIndex]], lazy: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """A run to a stop that no kept row matches (prunes, over rows keeping no prune) reads
+    each node of a block-read trail a few times at most, not a chunk per match, and ends
+    where the in-memory model ends."""
+    in_memory, blocks = _models("fault", memory, lazy)
+    budget = 8 * blocks.count  # rows read from the lazy columns
+    read = [0]
+
+    def counted(real: Any, size: Any) -> Any:
+        def reading(*args: Any, **kw: Any) -> Any:
+            read[0] += size(*args)
+            assert read[0] <= budget, f"more than {budget:,} rows read in one run"
+            return real(*args, **kw)
+
+        return reading
+
+    cond = parse_stops("prune")
+    for model in (in_memory, blocks):
+        model.apply_filter("is tour,tour_better,expand")
+    prunes = int(np.count_nonzero(memory["fault"][0].columns["decision"] == 1))
+    assert prunes > 100, "many matches, none of them kept"
+    monkeypatch.setattr(
+        BlockFile,
+        "column",
+        counted(BlockFile.column, lambda f, n, lo=0, hi=None: (hi or f.count) - lo),
+    )
+    monkeypatch.setattr(LazyColumn, "_take", counted(LazyColumn._take, lambda c, ids: ids.size))
+    for start, direction in ((0, 1), (blocks.count - 1, -1)):
+        read[0] = 0
+        got = blocks.run_until(cond, start, direction)
+        assert got == in_memory.run_until(cond, start, direction) is None
+
+
+# -- 6-9. the app on a trail read block by block --------------------------------------------
+
+
+@pytest.fixture
+def small_cache(monkeypatch: pytest.MonkeyPatch) -> None:
+    """The viewer opens block files with the small cache, and runs no oracle (in memory
+    either), so both viewers show the same panels."""
+    monkeypatch.setattr(
+        tui.loading, "open_blocks", functools.partial(open_blocks, cache_bytes=CACHE)
+    )
+    monkeypatch.setattr(tui.app, "ORACLE_MAX_NODES", 0)
+
+
+#: Move keys pressed in both viewers (with a decision filter for the last ones).
+MOVES = ["down", "j", "j", "right", "left", "h", "l", "s", "S", "pagedown", "pagedown"]
+MOVES += ["pageup", "end", "k", "home", "G", "g", "up"]
+
+
+async def _walk(app: PrunetrailApp, pilot: Any) -> list[int]:
+    """Where the cursor is after each move key, from the start, a middle node, and over
+    decision-filtered rows."""
+    seen = []
+    for start, text in ((0, ""), (app.model.count // 2, ""), (0, "is prune")):
+        app.apply_filter(text)
+        app.goto(start)
+        for key in MOVES:
+            await pilot.press(key)
+            seen.append(app.cursor)
+    app.apply_filter("")
+    return seen
+
+
+def _work_label(app: PrunetrailApp) -> str:
+    """The work line's text (indexing, re-check progress)."""
+    return str(app.query_one("#work-label").render())
+
+
+async def _viewer_run(path: Path, **kw: Any) -> dict[str, Any]:
+    """Run a viewer on `path` until its re-check is done; what it showed."""
+    app = PrunetrailApp(path, **kw)
+    async with app.run_test(size=SIZE) as pilot:
+        for _ in range(200):
+            await pilot.pause(0.05)
+            if app.model.checked == app.model.count:
+                break
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        wrong = app.model.wrong_ids.copy()
+        walk = await _walk(app, pilot)
+        panels = {}
+        for node in (int(wrong[0]), int(wrong[len(wrong) // 2]), int(wrong[-1])):
+            app.goto(node)
+            await pilot.pause()
+            panels[node] = _text(app.query_one("#bound"), 40)
+        return {
+            "blocks": app.model.blocks,
+            "wrong": wrong,
+            "checked": app.model.checked,
+            "walk": walk,
+            "panels": panels,
+            "label": _work_label(app),
+        }
+
+
+@pytest.mark.asyncio
+async def test_app_reads_blocks_as_it_reads_memory(
+    trails: dict[str, Path], memory: dict[str, tuple[Trail, TreeIndex]], small_cache: None
+) -> None:
+    """memory_mb=1 opens the planted-fault trail block by block; the keys move the cursor,
+    the background re-check finds the wrong records and the bound panel reads as in memory."""
+    whole, index = memory["fault"]
+    blocked = await _viewer_run(trails["fault"], memory_mb=1)
+    in_memory = await _viewer_run(trails["fault"])
+    assert isinstance(blocked["blocks"], BlockFile) and in_memory["blocks"] is None
+    assert blocked["checked"] == in_memory["checked"] == whole.count
+    expected = recheck(whole, index).wrong_ids
+    assert len(expected) and np.array_equal(blocked["wrong"], expected)
+    assert np.array_equal(in_memory["wrong"], expected)
+    assert blocked["walk"] == in_memory["walk"]
+    assert len(set(blocked["walk"])) > 10
+    assert blocked["panels"] == in_memory["panels"]
+    assert all("Re-check" in text for text in blocked["panels"].values())
+    assert "re-check done" in blocked["label"]
+
+
+def _without_index(source: Trail, path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
+    """The trail written with its end frame but no block index (as for too many blocks)."""
+    import tracer.trails.writer
+
+    with monkeypatch.context() as patch:
+        patch.setattr(tracer.trails.writer, "MAX_INDEX_BLOCKS", 0)
+        rewrite(source, path, 1000)
+    with open_blocks(path) as file:
+        assert not file.index.from_index and file.end is not None
+    return path
+
+
+@pytest.mark.asyncio
+async def test_first_screen_before_the_index_is_complete(
+    memory: dict[str, tuple[Trail, TreeIndex]],
+    small_cache: None,
+    tmp_path: Path,
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """A trail without a written index shows its first bytes' nodes, says it is indexing,
+    indexes the rest, then re-checks the whole trail."""
+    whole, index = memory["fault"]
+    path = _without_index(whole, tmp_path / "no-index.trail", monkeypatch)
+    monkeypatch.setattr(tui.loading, "FIRST_BYTES", 20_000)
+    monkeypatch.setattr(tui.app, "INDEX_STEP_BYTES", 10_000)
+    monkeypatch.setattr(tui.app, "INDEX_SNAPSHOT_SECONDS", 0.1)
+    refresh = BlockFile.refresh
+
+    def slow_refresh(self: BlockFile, max_bytes: int | None = None) -> int:
+        time.sleep(0.1)  # so the test sees the indexing under way
+        return refresh(self, max_bytes)
+
+    monkeypatch.setattr(BlockFile, "refresh", slow_refresh)
+    opened = open_for_viewing(path, memory_mb=1)
+    assert opened.blocks is not None and opened.blocks.indexing
+    assert 0 < opened.trail.count < whole.count
+    opened.blocks.close()
+    app = PrunetrailApp(path, memory_mb=1)
+    first = app.model.count
+    assert 0 < first < whole.count
+    seen: list[tuple[int, str]] = [(first, "")]
+    async with app.run_test(size=SIZE) as pilot:
+        for _ in range(300):
+            await pilot.pause(0.05)
+            seen.append((app.model.count, _work_label(app)))
+            if app.model.checked == whole.count:
+                break
+        await app.workers.wait_for_complete()
+        counts = [count for count, _ in seen]
+        assert counts == sorted(counts) and counts[-1] == whole.count
+        assert len(set(counts)) > 2, "the viewer took snapshots while indexing"
+        assert any("indexing" in label and count < whole.count for count, label in seen)
+        assert app.model.checked == whole.count
+        assert np.array_equal(app.model.wrong_ids, recheck(whole, index).wrong_ids)
+        assert "re-check done" in _work_label(app)
+        assert app.model.trail.end == whole.end and not app.model.live
+
+
+def _write_blocks(writer: TrailWriter, trail: Trail, lo: int, hi: int, size: int) -> None:
+    """Records [lo, hi) of `trail` in blocks of `size`, each best update before its block."""
+    for start in range(lo, hi, size):
+        stop = min(hi, start + size)
+        for update in trail.best:
+            if start <= update.at < stop or (start == 0 and update.at < 0):
+                writer.write_best(update)
+        writer.write_nodes({k: v[start:stop] for k, v in trail.columns.items()})
+
+
+@pytest.mark.asyncio
+async def test_live_trail_grows_in_the_block_viewer(
+    memory: dict[str, tuple[Trail, TreeIndex]],
+    small_cache: None,
+    tmp_path: Path,
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """A writer appends to a trail while the block viewer (memory_mb=1) shows it: the
+    model's count grows to the whole trail and the run's end arrives."""
+    whole, _ = memory["fault"]
+    monkeypatch.setattr(tui.app, "FOLLOW_INTERVAL", 0.1)
+    monkeypatch.setattr(tui.app, "INDEX_SNAPSHOT_SECONDS", 0.1)
+    path = tmp_path / "live.trail"
+    writer = TrailWriter(path, whole.header, threaded=False)
+    _write_blocks(writer, whole, 0, 30_000, 1000)
+    go = threading.Event()
+
+    def write_rest() -> None:
+        go.wait(10)
+        for lo in range(30_000, whole.count, 1000):
+            _write_blocks(writer, whole, lo, lo + 1000, 1000)
+            time.sleep(0.1)
+        assert whole.end is not None
+        writer.close(whole.end)
+
+    thread = threading.Thread(target=write_rest)
+    thread.start()
+    try:
+        app = PrunetrailApp(path, memory_mb=1, background=False)
+        counts = []
+        async with app.run_test(size=SIZE) as pilot:
+            assert app.model.blocks is not None and app.model.live
+            assert app.model.count == 30_000
+            go.set()
+            for _ in range(150):
+                await pilot.pause(0.1)
+                counts.append(app.model.count)
+                if app.model.trail.end is not None:
+                    break
+            assert app.model.trail.end == whole.end and not app.model.live
+    finally:
+        go.set()
+        thread.join()
+    assert counts == sorted(counts) and counts[-1] == whole.count
+    assert len(set(counts)) > 2, "the count grew step by step"
+
+
+@pytest.mark.asyncio
+async def test_truncated_trail_read_by_blocks(
+    trails: dict[str, Path], memory: dict[str, tuple[Trail, TreeIndex]], small_cache: None
+) -> None:
+    """A trail cut mid-frame opens block by block with every readable node and a notice,
+    and is re-checked as the readable part is in memory."""
+    whole, index = memory["cut"]
+    app = PrunetrailApp(trails["cut"], memory_mb=1, follow=False)
+    async with app.run_test(size=SIZE) as pilot:
+        model = app.model
+        assert model.blocks is not None and model.count == whole.count > 0
+        assert any("stops" in notice for notice in app._notices)
+        await pilot.press("end")
+        assert app.cursor == whole.count - 1
+        assert model.status == OPEN and "no end" in str(app.query_one("#top").render())
+        for _ in range(100):
+            await pilot.pause(0.05)
+            if model.checked == model.count:
+                break
+        assert model.checked == whole.count, _work_label(app)
+        assert np.array_equal(model.wrong_ids, recheck(whole, index).wrong_ids)

@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from textual.geometry import Region
 from textual.widgets import Input
 
 from tests.reference import instance_path
@@ -613,6 +614,30 @@ async def test_prompt_lines_keep_the_footer_and_focus(faulty):
         assert app.model.filter.describe() == "decision prune"
         assert app.model.rows.ranks is not None and app.model.rows.ids_array is None
         assert list(footer.children) == keys_before
+
+
+def _cursor_lines(nodes: NodeList) -> list[int]:
+    """The lines of the list, as drawn from its line cache, that carry the cursor's colour."""
+    cursor = nodes.get_component_rich_style("node-list--cursor", partial=True).bgcolor
+    lines = nodes.render_lines(Region(0, 0, nodes.size.width, nodes.size.height))
+    marked = [any(s.style and s.style.bgcolor == cursor for s in strip) for strip in lines]
+    return [y for y, on in enumerate(marked) if on]
+
+
+@pytest.mark.asyncio
+async def test_the_cursor_row_is_redrawn_where_it_leaves_and_enters(faulty):
+    """Steps, pages and jumps leave the cursor's colour on exactly the cursor's line."""
+    app = _app(faulty)
+    async with app.run_test(size=SIZE) as pilot:
+        await pilot.pause()
+        nodes = app.query_one(NodeList)
+        for key in ("down", "down", "up", "pagedown", "down", "pageup", "end", "home"):
+            await pilot.press(key)
+            await pilot.pause()
+            assert _cursor_lines(nodes) == [nodes.cursor_row - nodes.scroll_offset.y], key
+        app.goto(app.model.count // 2)
+        await pilot.pause()
+        assert _cursor_lines(nodes) == [nodes.cursor_row - nodes.scroll_offset.y]
 
 
 @pytest.mark.asyncio

@@ -420,6 +420,30 @@ async def test_bound_panel_keeps_its_height_between_nodes(planted: PanelModel) -
         assert panel.view is not None and panel.view.node == short
 
 
+@pytest.mark.asyncio
+async def test_bound_panel_reuses_a_view_only_for_the_same_node_and_facts(
+    planted: PanelModel, clean: PanelModel
+) -> None:
+    """Going back to a node shows the view made for it; a new mark or trail makes a new one."""
+    node = int(planted.wrong_ids[0])
+    panel = BoundPanel()
+    async with PanelApp(panel).run_test(size=(70, 30)) as pilot:
+        panel.show(planted, node)
+        first = panel.view
+        panel.show(planted, node + 1)
+        panel.show(planted, node)
+        await pilot.pause()
+        assert panel.view is first, "the same node, trail and marks: the view made before"
+        unmarked = dataclasses.replace(planted, wrong_ids=np.zeros(0, dtype=np.int64))
+        panel.show(unmarked, node)
+        assert panel.view is not None and panel.view is not first and not panel.view.wrong
+        panel.show(clean, node)  # another trail: its own record, not the cached one
+        assert panel.view == bound_view(
+            clean.trail, clean.index, node, completion=panel.view.completion
+        )
+        assert panel.view.parts != first.parts
+
+
 # -- the map -----------------------------------------------------------------------------
 
 
@@ -458,6 +482,30 @@ async def test_city_map_draws_the_path_and_toggles_labels(clean: PanelModel) -> 
     assert "approximate" not in plain
     tree = format_length(float(clean.trail.columns[TREE][node]))
     assert plain.splitlines()[0].startswith(f"map · 5 left · tree {tree}")
+
+
+@pytest.mark.asyncio
+async def test_city_map_redraws_only_for_another_node_or_snapshot(clean: PanelModel) -> None:
+    """The same node of the same trail and index again keeps the drawing; any change redraws."""
+    city_map = CityMap()
+    node = next(n for n in range(clean.trail.count) if len(clean.index.path(n)) == 4)
+    async with PanelApp(city_map).run_test(size=(60, 20)) as pilot:
+        city_map.show(clean, node)
+        await pilot.pause()
+        drawn = city_map.view
+        city_map.show(clean, node)
+        assert city_map.view is drawn
+        city_map.show(clean, node + 1)
+        moved = city_map.view
+        assert moved is not None and moved.path == tuple(clean.index.path(node + 1))
+        grown = dataclasses.replace(clean, index=TreeIndex(clean.trail.columns, clean.trail.best))
+        city_map.show(grown, node + 1)  # a new snapshot (a live trail grew): drawn again
+        assert city_map.view is not moved and city_map.view.path == moved.path
+        before = city_map.view
+        city_map.show(grown, node + 1)
+        assert city_map.view is before
+        await pilot.pause()
+        assert "◆" in _text(city_map, 20)
 
 
 def test_degrees_count_tree_and_link_ends(clean: PanelModel) -> None:

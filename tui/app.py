@@ -56,7 +56,7 @@ from tui.city_map import CityMap
 from tui.dialogs import BookmarksScreen, HelpScreen, NoteDialog, StopDialog
 from tui.keys import keymap_path, load_keymap
 from tui.loading import Loading, start_loading
-from tui.model import ViewerModel
+from tui.model import RECHECK_STEP, ViewerModel
 from tui.node_list import NodeList, NodeListHeader
 from tui.outline import BranchOutline
 from tui.prompt_bar import FilterBar, GoToBar, PromptBar
@@ -106,13 +106,15 @@ class TrailGrew(Message):
 
 
 class IndexProgress(Message):
-    """How far a trail opened block by block has been indexed (bytes of the file)."""
+    """How far a trail opened block by block has been indexed (bytes of the file);
+    `resting`: the whole file as it is now is read (a live file is then followed)."""
 
-    def __init__(self, done: int, size: int, nodes: int) -> None:
+    def __init__(self, done: int, size: int, nodes: int, resting: bool) -> None:
         super().__init__()
         self.done = done
         self.size = size
         self.nodes = nodes
+        self.resting = resting
 
 
 class Notice(Message):
@@ -619,7 +621,7 @@ class PrunetrailApp(App[None]):
         blocks = self.model.blocks
         if blocks is None:
             self._recheck_in_memory()
-        elif blocks.indexing:
+        elif not self.model.settled:
             self._work_label.update(
                 Text("re-check starts once the trail is indexed", style="dim"), layout=False
             )
@@ -638,7 +640,9 @@ class PrunetrailApp(App[None]):
             self.post_message(RecheckProgress(wrong, checked_to, total))
 
         with contextlib.suppress(_CancelledError):
-            stream_recheck(blocks, stop=total, first=0, on_wrong=found)
+            # Windows of RECHECK_STEP rows, as the in-memory re-check's steps: each numpy
+            # pass of the check then holds the interpreter only briefly, so keys stay quick.
+            stream_recheck(blocks, stop=total, first=0, rows=RECHECK_STEP, on_wrong=found)
 
     @work(thread=True, exclusive=True, group="index", exit_on_error=False)
     def _index_blocks(self, blocks: BlockFile) -> None:
@@ -650,32 +654,30 @@ class PrunetrailApp(App[None]):
             added = blocks.refresh(INDEX_STEP_BYTES)
             _, done, size = blocks.progress
             now = time.monotonic()
-            settled = not blocks.indexing or done >= size
-            if added and (settled or now - shown >= INDEX_SNAPSHOT_SECONDS):
+            resting = not blocks.indexing or blocks.at_end
+            if added and (resting or now - shown >= INDEX_SNAPSHOT_SECONDS):
                 shown = now
                 self.post_message(TrailGrew(*lazy_view(blocks)))
-            self.post_message(IndexProgress(done, size, blocks.count))
-            if not blocks.indexing:
-                if not added:
+            if added or not resting:
+                self.post_message(IndexProgress(done, size, blocks.count, resting))
+            if not blocks.indexing or (resting and not self._follow_blocks):
+                if not added:  # the model learns that the trail is settled
                     self.post_message(TrailGrew(*lazy_view(blocks)))
                 return
-            if done >= size and (
-                not self._follow_blocks or self._stop_follow.wait(FOLLOW_INTERVAL)
-            ):
+            if resting and self._stop_follow.wait(FOLLOW_INTERVAL):
                 return
 
     def on_index_progress(self, message: IndexProgress) -> None:
         if self.model.checked:
             return
         self._work_bar.update(total=max(message.size, 1), progress=message.done)
-        self._work_label.update(
-            Text(
-                f"indexing: {message.done / 1e9:.2f} of {message.size / 1e9:.2f} GB, "
-                f"{message.nodes:,} nodes so far",
-                style="yellow",
-            ),
-            layout=False,
+        text = (
+            f"indexed {message.nodes:,} nodes; following the file as it grows"
+            if message.resting
+            else f"indexing: {message.done / 1e9:.2f} of {message.size / 1e9:.2f} GB, "
+            f"{message.nodes:,} nodes so far"
         )
+        self._work_label.update(Text(text, style="yellow"), layout=False)
 
     @work(thread=True, exclusive=True, group="recheck", exit_on_error=False)
     def _recheck_in_memory(self) -> None:
@@ -717,7 +719,9 @@ class PrunetrailApp(App[None]):
             self._update_top()
 
     def _hide_work(self) -> None:
+        # A bar without a total is indeterminate and animates (a timer) even when hidden.
         self._work_bar.display = False
+        self._work_bar.update(total=1, progress=0)
 
     def _oracle_fits(self) -> bool:
         return (
@@ -815,7 +819,17 @@ class PrunetrailApp(App[None]):
                 timeout=5,
             )
             return
-        self.notify("looking for where the optimal tour's branch was cut…", timeout=3)
+        if not self.model.settled:
+            self.notify("why once the trail is indexed", timeout=4, markup=False)
+            return
+        if self.model.blocks is not None:
+            self.notify(
+                f"following the optimal tour through all {self.model.count:,} nodes "
+                "(one pass over the file)…",
+                timeout=5,
+            )
+        else:
+            self.notify("looking for where the optimal tour's branch was cut…", timeout=3)
         self._explain(show)
 
     @work(thread=True, exclusive=True, group="why", exit_on_error=False)
@@ -854,7 +868,7 @@ class PrunetrailApp(App[None]):
         blocks = self.model.blocks
         if blocks is None:
             self.push_screen(StatsScreen.from_model(self.model))
-        elif blocks.indexing:
+        elif not self.model.settled:
             self.notify("statistics once the trail is indexed", timeout=4, markup=False)
         else:
             self.notify(f"reading all {self.model.count:,} nodes for the statistics…", timeout=4)

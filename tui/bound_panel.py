@@ -20,6 +20,7 @@ from typing import TYPE_CHECKING, Any, ClassVar
 
 from rich.style import Style
 from rich.text import Text
+from textual.cache import LRUCache
 from textual.geometry import Size
 from textual.strip import Strip
 from textual.widget import Widget
@@ -57,6 +58,9 @@ _DIGIT_GROUP = re.compile(r"(?<=\d) (?=\d{3}\b)")
 _W = 11
 #: Cities of the path shown before it is shortened from the left.
 _PATH_CITIES = 14
+#: Views of recently shown nodes kept (stepping back, or filtering to the same node again,
+#: then costs no second re-check of the node).
+RECENT_VIEWS = 64
 
 
 @dataclass(frozen=True)
@@ -290,6 +294,9 @@ class BoundPanel(Widget):
         self._lines_cache: tuple[int, list[Text]] | None = None
         self._reserved: dict[int, int] = {}
         self._styles: dict[str, Style] = {}
+        self._recent: LRUCache[
+            tuple[int, float | None, bool], tuple[Trail, TreeIndex, BoundView]
+        ] = LRUCache(RECENT_VIEWS)
 
     @property
     def view(self) -> BoundView | None:
@@ -303,11 +310,17 @@ class BoundPanel(Widget):
         if completions is not None:
             value = float(completions[node])
             completion = None if math.isnan(value) else value
-        self.show_values(
-            bound_view(
-                model.trail, model.index, node, completion=completion, wrong=model.is_wrong(node)
-            )
-        )
+        wrong = model.is_wrong(node)
+        # A view holds for the same trail snapshot and index (a live trail brings new ones).
+        key = (node, completion, wrong)
+        recent = self._recent.get(key)
+        if recent is not None and recent[0] is model.trail and recent[1] is model.index:
+            view = recent[2]
+        else:
+            view = bound_view(model.trail, model.index, node, completion=completion, wrong=wrong)
+            self._recent.set(key, (model.trail, model.index, view))
+        if view is not self._view:  # the same view again (a filter kept the node): no repaint
+            self.show_values(view)
 
     def show_values(self, view: BoundView) -> None:
         """Show a view built elsewhere (tests, exports).

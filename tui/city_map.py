@@ -47,6 +47,8 @@ _CELL = {name: number for number, name in enumerate(CELL_STYLES)}
 #: Braille dot bits by (row, column) inside a cell (Unicode's dot numbering).
 _DOT_BITS = np.array([[0x01, 0x08], [0x02, 0x10], [0x04, 0x20], [0x40, 0x80]], dtype=np.uint8)
 _BRAILLE = 0x2800
+#: A cell's character by its braille bits (no dots: a space).
+_GLYPHS = np.array([chr(_BRAILLE + b) if b else " " for b in range(256)], dtype="<U1")
 _START_GLYPH = "◆"
 _VISITED_GLYPH = "●"
 _CITY_GLYPH = "○"
@@ -194,7 +196,7 @@ def raster(
     Returns:
         rows×cols braille bit masks.
     """
-    grid = np.zeros((rows * 4, cols * 2), dtype=np.bool_)
+    bits = np.zeros(rows * cols, dtype=np.uint8)
     e = np.asarray(edges, dtype=np.int64).reshape(-1, 2)
     if len(e):
         a, b = dots[e[:, 0]], dots[e[:, 1]]
@@ -205,9 +207,9 @@ def raster(
         points = a[which] + (b[which] - a[which]) * t[:, None]
         yy = np.clip(np.rint(points[:, 0]).astype(np.int64), 0, rows * 4 - 1)
         xx = np.clip(np.rint(points[:, 1]).astype(np.int64), 0, cols * 2 - 1)
-        grid[yy, xx] = True
-    cells = grid.reshape(rows, 4, cols, 2)
-    return np.asarray((cells * _DOT_BITS[None, :, None, :]).sum(axis=(1, 3)), dtype=np.uint8)
+        # Each dot sets its bit in its cell (a dot drawn twice sets the same bit).
+        np.bitwise_or.at(bits, (yy >> 2) * cols + (xx >> 1), _DOT_BITS[yy & 3, xx & 1])
+    return bits.reshape(rows, cols)
 
 
 class CityMap(Widget, can_focus=True):
@@ -263,6 +265,7 @@ class CityMap(Widget, can_focus=True):
         self._view: MapView | None = None
         self._message: str | None = None
         self._layout: tuple[TrailHeader, CityLayout] | None = None
+        self._shown: tuple[Trail, TreeIndex, int] | None = None
         self._strips: list[Strip] = []
         self._strips_size: tuple[int, int] = (-1, -1)
         self._styles: dict[str, Style] = {}
@@ -275,6 +278,15 @@ class CityMap(Widget, can_focus=True):
     def show(self, model: ViewerModel, node: int) -> None:
         """Draw `node` of the model's trail (the layout is made once per trail header)."""
         trail = model.trail
+        shown = self._shown
+        if (
+            shown is not None
+            and shown[0] is trail
+            and shown[1] is model.index
+            and shown[2] == node
+            and self._view is not None
+        ):
+            return  # the same node of the same trail (a filter kept it): nothing to redraw
         known = self._layout
         if known is not None and known[0] is trail.header:
             layout = known[1]
@@ -286,6 +298,7 @@ class CityMap(Widget, can_focus=True):
                 return
             self._layout = (trail.header, layout)
         self.show_values(map_view(trail, model.index, node, layout))
+        self._shown = (trail, model.index, node)
 
     def show_message(self, message: str) -> None:
         """Show one line instead of a drawing (an instance that cannot be laid out)."""
@@ -297,6 +310,7 @@ class CityMap(Widget, can_focus=True):
         """Draw a view built elsewhere (tests)."""
         self._view = view
         self._message = None
+        self._shown = None
         self._invalidate()
 
     def action_toggle_labels(self) -> None:
@@ -364,11 +378,18 @@ class CityMap(Widget, can_focus=True):
         chars, styles = self._cells(view, rows, cols)
         lines = [self._text_strip([(title, "title")], width)]
         cell_styles = [self.rich_style, *(self._style(name) for name in CELL_STYLES[1:])]
-        texts = ["".join(row) for row in chars.tolist()]
-        for text, row in zip(texts, styles, strict=True):
-            cuts = [0, *(np.flatnonzero(row[1:] != row[:-1]) + 1).tolist(), cols]
+        # One string per row (a row of one-character cells read as one string), and the
+        # columns where the style changes, found for all rows at once.
+        texts = np.ascontiguousarray(chars).view(f"<U{cols}").ravel().tolist()
+        rows_at, cols_at = np.nonzero(styles[:, 1:] != styles[:, :-1])
+        ends = np.searchsorted(rows_at, np.arange(rows + 1)).tolist()
+        changes = (cols_at + 1).tolist()
+        row_styles = styles.tolist()
+        for y, text in enumerate(texts):
+            cuts = [0, *changes[ends[y] : ends[y + 1]], cols]
+            row = row_styles[y]
             segments = [
-                Segment(text[a:b], cell_styles[int(row[a])]) for a, b in itertools.pairwise(cuts)
+                Segment(text[a:b], cell_styles[row[a]]) for a, b in itertools.pairwise(cuts)
             ]
             lines.append(Strip(segments, cols))
         with_pi = " (π)" if view.penalties is not None else ""
@@ -405,7 +426,7 @@ class CityMap(Widget, can_focus=True):
             layer = raster(dots, layers[name], rows, cols)
             bits |= layer
             styles[layer > 0] = _CELL[name]
-        chars = np.array([chr(_BRAILLE + b) if b else " " for b in range(256)], dtype=object)[bits]
+        chars = _GLYPHS[bits]
         cell_r = np.clip((dots[:, 0] // 4).astype(np.int64), 0, rows - 1)
         cell_c = np.clip((dots[:, 1] // 2).astype(np.int64), 0, cols - 1)
         on_path = np.zeros(len(dots), dtype=np.bool_)

@@ -42,6 +42,10 @@ OPEN = "no end"
 INDEXING = "indexing"
 #: Node ids the re-check handles per background step (marks appear after each).
 RECHECK_STEP = 1 << 16
+#: Ids a run over decision-filtered rows of a block-read trail looks at first, and at most
+#: at a time (the range grows fourfold each time nothing matches).
+RUN_FIRST_IDS = 1 << 12
+RUN_MOST_IDS = 1 << 22
 #: Most nodes a filter may read one by one (a depth or ratio clause) in a trail opened block by
 #: block; a prefix clause narrows the range first.
 BLOCK_SCAN_LIMIT = 20_000_000
@@ -266,11 +270,21 @@ class ViewerModel:
         is indexed to its end, or "no end" for a trail that just stops."""
         if self.trail.end is not None:
             return self.trail.end.status
-        if self.blocks is not None and self.blocks.indexing:
-            _, done, size = self.blocks.progress
-            if done < size:
-                return INDEXING
+        if self.indexing:
+            return INDEXING
         return LIVE if self.live else OPEN
+
+    @property
+    def indexing(self) -> bool:
+        """Whether a trail read block by block is still being indexed (not yet scanned to
+        the end of its file)."""
+        return self.blocks is not None and self.blocks.indexing and not self.blocks.at_end
+
+    @property
+    def settled(self) -> bool:
+        """Whether the whole file as it is now is indexed (what whole-trail passes over a
+        block-read trail wait for; nodes a live run adds later are not part of them)."""
+        return self.trail.end is not None or not self.indexing
 
     @property
     def complete(self) -> bool:
@@ -361,18 +375,30 @@ class ViewerModel:
         return found if rows.lo <= found < rows.hi else None
 
     def _run_over_ranks(self, condition: StopCondition, node: int, direction: int) -> int | None:
-        """`run_until` over decision-filtered rows of a block file: matches are found in
-        visit order and skipped until one is kept (no array of every kept id)."""
-        rows = self.rows
-        found: int | None = node
-        while found is not None:
+        """`run_until` over decision-filtered rows of a block file: the kept ids of growing
+        id ranges leaving `node` are the candidates (no array of every kept id)."""
+        rows, ranks = self.rows, self.rows.ranks
+        assert ranks is not None
+        size = RUN_FIRST_IDS
+        lo, hi = (node + 1, node + 1) if direction >= 0 else (node, node)
+        while (direction >= 0 and hi < rows.hi) or (direction < 0 and lo > rows.lo):
+            if direction >= 0:
+                lo, hi = hi, min(rows.hi, hi + size)
+            else:
+                lo, hi = max(rows.lo, lo - size), lo
+            kept = ranks.between(lo, hi - 1)
             found = next_match(
-                condition, self.trail, self.index, found, direction, wrong_ids=self.wrong_ids
+                condition,
+                self.trail,
+                self.index,
+                node,
+                direction,
+                wrong_ids=self.wrong_ids,
+                kept=kept,
             )
-            if found is not None and (found < rows.lo or found >= rows.hi):
-                return None
-            if found is not None and rows.holds(found):
+            if found is not None:
                 return found
+            size = min(size * 4, RUN_MOST_IDS)
         return None
 
     def decision_name(self, node: int) -> str:

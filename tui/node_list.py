@@ -253,7 +253,9 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
             strip = self._cache.get(row)
             assert strip is not None
         if row == self.cursor_row:
-            return strip.apply_style(styles["cursor"])
+            # Over the row's own colours (`Strip.apply_style` puts a style beneath them, where
+            # the row's background hides the cursor's).
+            return Strip(Segment.apply_style(strip, post_style=styles["cursor"]), width)
         return strip
 
     def _format_rows(self, start: int, stop: int, width: int) -> None:

@@ -44,6 +44,9 @@ QUICK: dict[str, dict[str, Any]] = {
     "bench_start_tours": {"CITIES": 200, "REPEATS": 1},
     "bench_sweep": {"CUTOFFS": range(3), "REPEAT": 1, "PASSES": 1},
     "bench_viewer": {"argv": ["--nodes", "1000000", "--repeats", "3"]},
+    "bench_viewer_large": {
+        "argv": ["--instance", "burma14", "--cutoff", "4", "--memory-mb", "1", "--repeats", "2"]
+    },
 }
 
 #: Runs one script's main() (not its __main__ block) and prints the rows it returned. Its

@@ -66,13 +66,26 @@ class LazyTreeIndex(TreeIndex):
         tree = file.tree
         self.parent = cast(NDArray[np.int32], _PerNode(tree.parent, self.count))
         self.end = cast(NDArray[np.int32], _PerNode(tree.subtree_end, self.count))
+        self._whole: dict[str, int] | None = None
         self._set_best(trail.best)
+
+    def path(self, node: int) -> list[int]:
+        """Cities from the start city to `node` (a block's own parents read as arrays)."""
+        return self.file.tree.path(node)
+
+    def ancestors(self, node: int) -> list[int]:
+        """Ids from the root down to `node`, inclusive."""
+        return self.file.tree.ancestors(node)
 
     def decision_counts(self, start: int = 0, stop: int | None = None) -> dict[str, int]:
         """How many nodes in [start, stop) took each decision (whole blocks by summary)."""
         stop = self.count if stop is None else min(stop, self.count)
         if stop <= start:
             return dict.fromkeys(DECISION_NAMES, 0)
+        if start <= 0 and stop == self.count:  # the whole snapshot: asked on every move
+            if self._whole is None:
+                self._whole = self.file.tree.decision_counts(0, stop)
+            return dict(self._whole)
         return self.file.tree.decision_counts(start, stop)
 
     def decision_ranks(self, codes: frozenset[int]) -> DecisionRanks:

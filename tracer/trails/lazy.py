@@ -55,6 +55,7 @@ from tracer.trails.reader import (
 #: Default bound of a `BlockFile`'s cache of decoded columns.
 DEFAULT_CACHE_BYTES = 64 * 1024 * 1024
 _PARENT = "(parent)"  # the cache key of a block's parent ids, beside its columns
+_ENTRY_MEMO = 1 << 16  # most remembered parents before a block, and far subtree ends
 
 
 class _Cache:
@@ -107,6 +108,11 @@ class BlockFile:
         self._cache = _Cache(cache_bytes)
         self._last: tuple[int, dict[str, bytes]] | None = None  # the last block's payload
         self._orphan_free: dict[int, bool] = {}
+        #: (block, depth) -> the last id before the block at that depth or above: the open
+        #: ancestors a block starts under, found once (bounded: cleared when full).
+        self._entry: dict[tuple[int, int], int] = {}
+        #: node -> its subtree end, for subtrees that end in a later block (found once).
+        self._far_ends: dict[int, int] = {}
         self._lock = threading.RLock()
         self._handle: BinaryIO = open(index.path, "rb")  # noqa: SIM115 (closed in close())
         self._sync()
@@ -151,8 +157,15 @@ class BlockFile:
 
     @property
     def indexing(self) -> bool:
-        """Whether the file is still being scanned (not indexed to its end frame)."""
+        """Whether the file may hold more to index (no end frame or corrupt frame reached)."""
         return self._scanner is not None and self.end is None and self.corrupt is None
+
+    @property
+    def at_end(self) -> bool:
+        """Whether the scan has read the whole file as it is now: what is not indexed is
+        at most a frame still being written (or cut short); a `refresh` finds more only
+        if the file grows."""
+        return self._scanner is None or self._scanner.bytes_read >= self.index.size
 
     @property
     def progress(self) -> tuple[int, int, int]:
@@ -388,7 +401,14 @@ class BlockTree:
         value = int(self._file._parents(block)[node - int(self._file.index.values("first")[block])])
         if value > -3:
             return value
-        return self._last_at_most(int(self._file.index.values("first")[block]), -3 - value)
+        entry, key = self._file._entry, (block, -3 - value)
+        found = entry.get(key)
+        if found is None:
+            found = self._last_at_most(int(self._file.index.values("first")[block]), key[1])
+            if len(entry) >= _ENTRY_MEMO:
+                entry.clear()
+            entry[key] = found
+        return found
 
     def subtree_end(self, node: int) -> int:
         """One past `node`'s subtree: the first later record at its depth or above."""
@@ -402,28 +422,48 @@ class BlockTree:
         hit = np.flatnonzero(depth[node + 1 - start :] <= d)
         if len(hit):
             return node + 1 + int(hit[0])
+        far = self._file._far_ends
+        found = far.get(node)
+        if found is not None:
+            return found
         later = np.flatnonzero(self._file.index.values("min_depth")[block + 1 :] <= d)
         if not len(later):
-            return self._file.count
+            return self._file.count  # so far: a growing file may still close it
         block += 1 + int(later[0])
         hit = np.flatnonzero(self._file._cached(block, DEPTH) <= d)
-        return int(first[block]) + int(hit[0])
+        found = int(first[block]) + int(hit[0])
+        if len(far) >= _ENTRY_MEMO:
+            far.clear()
+        far[node] = found
+        return found
 
     def path(self, node: int) -> list[int]:
         """Cities from the start city to `node` (O(depth) lookups)."""
-        cities: list[int] = []
-        while node >= 0:
-            cities.append(int(self._file._at(CITY, node)))
-            node = self.parent(node)
-        return cities[::-1]
+        return self._walk(node)[1][::-1]
 
     def ancestors(self, node: int) -> list[int]:
         """Ids from the root down to `node`, inclusive."""
+        return self._walk(node)[0][::-1]
+
+    def _walk(self, node: int) -> tuple[list[int], list[int]]:
+        """The ids and cities from `node` up to the root: a block's own parents and cities
+        are read as arrays, so only a step out of a block looks anything up."""
+        file = self._file
+        first = file.index.values("first")
         ids: list[int] = []
+        cities: list[int] = []
         while node >= 0:
-            ids.append(node)
-            node = self.parent(node)
-        return ids[::-1]
+            block = file._block(node)
+            start = int(first[block])
+            parents, city = file._parents(block), file._cached(block, CITY)
+            while node >= start:
+                ids.append(node)
+                cities.append(int(city[node - start]))
+                value = int(parents[node - start])
+                if value <= -3:  # the parent lies before this block
+                    value = self.parent(node)
+                node = value
+        return ids, cities
 
     def children(self, node: int) -> list[int]:
         """Ids of `node`'s children, in order (jumping over each child's subtree)."""
@@ -491,16 +531,20 @@ class BlockTree:
         return {name: int(counts[i]) for i, name in enumerate(DECISION_NAMES)}
 
     def _last_at_most(self, before: int, depth: int) -> int:
-        """The last id before `before` at `depth` or above (blocks deeper throughout skipped)."""
-        first = self._file.index.values("first")
-        block = self._file.index.block_of(before - 1)
-        while block >= 0:
-            if int(self._file.index.values("min_depth")[block]) <= depth:
-                values = self._file._cached(block, DEPTH)[: before - int(first[block])]
-                hit = np.flatnonzero(values <= depth)
-                if len(hit):
-                    return int(first[block]) + int(hit[-1])
-            block -= 1
+        """The last id before `before` at `depth` or above: in the block of `before - 1`, or
+        else in the last earlier block whose minimum depth allows it (one array search)."""
+        index = self._file.index
+        first = index.values("first")
+        block = index.block_of(before - 1)
+        values = self._file._cached(block, DEPTH)[: before - int(first[block])]
+        hit = np.flatnonzero(values <= depth)
+        if not len(hit):
+            earlier = np.flatnonzero(index.values("min_depth")[:block] <= depth)
+            if len(earlier):
+                block = int(earlier[-1])
+                hit = np.flatnonzero(self._file._cached(block, DEPTH) <= depth)
+        if len(hit):
+            return int(first[block]) + int(hit[-1])
         raise CorruptTrailError(
             self._file.path, 0, f"no record at depth {depth} before id {before}", None
         )
@@ -610,13 +654,12 @@ class LazyColumn:
         order = np.argsort(flat, kind="stable")
         ordered = flat[order]
         first = self._file.index.values("first")
-        lo = self._file.index.block_of(int(ordered[0]))
-        hi = self._file.index.block_of(int(ordered[-1]))
-        cuts = np.searchsorted(ordered, first[lo + 1 : hi + 1])
-        starts = np.concatenate(([0], cuts))
-        stops = np.concatenate((cuts, [len(ordered)]))
-        for block, a, b in zip(range(lo, hi + 1), starts.tolist(), stops.tolist(), strict=True):
-            if a < b:
-                values = self._file._cached(block, self.name)
-                out[order[a:b]] = values[ordered[a:b] - int(first[block])]
+        blocks = np.searchsorted(first, ordered, side="right") - 1
+        cuts = np.flatnonzero(np.diff(blocks)) + 1  # where the block changes
+        starts = np.concatenate(([0], cuts)).tolist()
+        stops = [*cuts.tolist(), len(ordered)]
+        for a, b in zip(starts, stops, strict=True):
+            block = int(blocks[a])
+            values = self._file._cached(block, self.name)
+            out[order[a:b]] = values[ordered[a:b] - int(first[block])]
         return out.reshape((*ids.shape, *self._row_shape))
