@@ -40,10 +40,12 @@ def faulty_lines(tmp_path_factory: pytest.TempPathFactory) -> list[str]:
 
 @pytest.fixture
 def scratch(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
-    """The folder temporary folders are made in, for this test alone."""
+    """The folder temporary folders are made in, for this test alone (beside the trace is
+    where they go by default, `test_the_temporary_trail_goes_beside_the_trace`)."""
     folder = tmp_path / "scratch"
     folder.mkdir()
     monkeypatch.setattr(tempfile, "tempdir", str(folder))
+    monkeypatch.setattr(check, "_scratch_dir", lambda path: str(folder))
     return folder
 
 
@@ -93,8 +95,16 @@ def both_ways(
 def _assert_streamed(imports: list[Import], scratch: Path) -> None:
     """One streamed import ran and wrote its trail, whose folder is gone, as is every other."""
     assert len(imports) == 1 and imports[0].summary is not None
+    assert imports[0].target.parent.parent == scratch
     assert not imports[0].target.parent.exists()
     assert list(scratch.iterdir()) == []
+
+
+def test_the_temporary_trail_goes_beside_the_trace(tmp_path: Path) -> None:
+    """Not into the system's temp folder, which is often held in memory."""
+    trace = tmp_path / "deep" / "run.jsonl"
+    trace.parent.mkdir()
+    assert check._scratch_dir(str(trace)) == str(trace.parent.resolve())
 
 
 @pytest.mark.parametrize("command", COMMANDS)

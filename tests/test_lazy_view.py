@@ -32,6 +32,9 @@ from tracer.analysis import (
     FilterError,
     LazyTreeIndex,
     TreeIndex,
+    completion_table,
+    depth_stats,
+    explain,
     kept_ids,
     kept_range,
     lazy_view,
@@ -199,8 +202,26 @@ def test_lazy_column_equals_the_array(
                 col[bad]
         with pytest.raises(IndexError):
             col[0:10:2]
+        with pytest.raises(IndexError):
+            col[0, 1]
         with pytest.raises(TypeError):
             np.asarray(col)
+        _refuses_whole_column_use(col)
+
+
+def _refuses_whole_column_use(col: LazyColumn) -> None:
+    """Comparisons, iteration and hashing would read a huge column whole: each raises."""
+    for whole_column in (
+        lambda: col == 3,
+        lambda: col != 3,
+        lambda: col < 3,
+        lambda: col >= 3,
+        lambda: np.uint8(3) == col,
+        lambda: list(col),
+        lambda: hash(col),
+    ):
+        with pytest.raises(TypeError):
+            whole_column()
 
 
 # -- 2. the lazy tree index ------------------------------------------------------------------
@@ -602,6 +623,38 @@ async def test_app_reads_blocks_as_it_reads_memory(
     assert "re-check done" in blocked["label"]
 
 
+@pytest.mark.asyncio
+async def test_stats_and_why_stream_in_the_block_viewer(
+    trails: dict[str, Path], memory: dict[str, tuple[Trail, TreeIndex]], small_cache: None
+) -> None:
+    """On a block-read trail the stats screen and the why report come from one streaming
+    pass each (in workers), equal to the in-memory analyses; the stats are kept after."""
+    whole, index = memory["fault"]
+    app = PrunetrailApp(trails["fault"], memory_mb=1)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await pilot.pause()
+        assert app.model.blocks is not None
+        await pilot.press("t")
+        for _ in range(400):
+            if type(app.screen).__name__ == "StatsScreen":
+                break
+            await pilot.pause(0.05)
+        assert type(app.screen).__name__ == "StatsScreen"
+        assert app._stats is not None
+        assert app._stats.to_json() == depth_stats(whole).to_json()
+        assert not app._passes  # the pass is over
+        await pilot.press("escape")
+        app.action_why_cut()
+        for _ in range(400):
+            if app._why_report is not None:
+                break
+            await pilot.pause(0.05)
+        assert app._why_report is not None
+        table = completion_table(whole.header.instance)
+        expected = explain(whole, index, tour=None, table=table)
+        assert app._why_report.to_json() == expected.to_json()
+
+
 def _without_index(source: Trail, path: Path, monkeypatch: pytest.MonkeyPatch) -> Path:
     """The trail written with its end frame but no block index (as for too many blocks)."""
     import tracer.trails.writer
@@ -660,6 +713,37 @@ async def test_first_screen_before_the_index_is_complete(
         assert app.model.trail.end == whole.end and not app.model.live
 
 
+@pytest.mark.asyncio
+async def test_start_options_wait_for_the_index(
+    memory: dict[str, tuple[Trail, TreeIndex]],
+    small_cache: None,
+    tmp_path: Path,
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """`--at` a node and `--prefix` a path that are not indexed yet are not refused: the
+    cursor goes to the node once it is indexed, and the prefix keeps its subtree; the
+    first scan's stopping point is no notice."""
+    whole, index = memory["fault"]
+    path = _without_index(whole, tmp_path / "no-index.trail", monkeypatch)
+    monkeypatch.setattr(tui.loading, "FIRST_BYTES", 20_000)
+    monkeypatch.setattr(tui.app, "INDEX_STEP_BYTES", 10_000)
+    monkeypatch.setattr(tui.app, "INDEX_SNAPSHOT_SECONDS", 0.1)
+    last = whole.count - 1
+    late = next(a for a in index.ancestors(last) if a > 10_000)  # well past the first scan
+    prefix = " ".join(map(str, index.path(late)))
+    lo, hi = index.subtree(late)
+    app = PrunetrailApp(path, memory_mb=1, at=last - 1, prefix=prefix, background=False)
+    assert app.model.count <= lo  # neither is indexed yet
+    assert not app._notices
+    async with app.run_test(size=SIZE) as pilot:
+        for _ in range(300):
+            await pilot.pause(0.05)
+            if app.model.trail.end is not None and app.cursor == last - 1:
+                break
+        assert app.cursor == last - 1
+        assert (app.model.rows.lo, app.model.rows.hi) == (lo, hi)
+
+
 def _write_blocks(writer: TrailWriter, trail: Trail, lo: int, hi: int, size: int) -> None:
     """Records [lo, hi) of `trail` in blocks of `size`, each best update before its block."""
     for start in range(lo, hi, size):
@@ -715,6 +799,57 @@ async def test_live_trail_grows_in_the_block_viewer(
         thread.join()
     assert counts == sorted(counts) and counts[-1] == whole.count
     assert len(set(counts)) > 2, "the count grew step by step"
+
+
+@pytest.mark.asyncio
+async def test_live_block_trail_is_rechecked_to_its_end(
+    memory: dict[str, tuple[Trail, TreeIndex]],
+    small_cache: None,
+    tmp_path: Path,
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    """The re-check of a live block-read trail covers what the run adds after its first
+    pass once the run ends (not only the first snapshot), and finds every wrong record."""
+    whole, index = memory["fault"]
+    monkeypatch.setattr(tui.app, "FOLLOW_INTERVAL", 0.1)
+    monkeypatch.setattr(tui.app, "INDEX_SNAPSHOT_SECONDS", 0.1)
+    path = tmp_path / "live.trail"
+    writer = TrailWriter(path, whole.header, threaded=False)
+    _write_blocks(writer, whole, 0, 20_000, 1000)
+    go = threading.Event()
+
+    def write_rest() -> None:
+        go.wait(10)
+        for lo in range(20_000, whole.count, 5000):
+            _write_blocks(writer, whole, lo, min(lo + 5000, whole.count), 1000)
+            time.sleep(0.2)
+        assert whole.end is not None
+        writer.close(whole.end)
+
+    thread = threading.Thread(target=write_rest)
+    thread.start()
+    try:
+        app = PrunetrailApp(path, memory_mb=1)
+        async with app.run_test(size=SIZE) as pilot:
+            for _ in range(50):  # the first pass, over the first snapshot
+                await pilot.pause(0.05)
+                if app.model.checked:
+                    break
+            first = app.model.checked
+            assert 0 < first < 20_000  # the live trail's last node waits
+            go.set()
+            for _ in range(400):
+                await pilot.pause(0.05)
+                if app.model.trail.end is not None and app.model.checked >= whole.count:
+                    break
+            label = str(app._work_label.render())
+            checked, wrong = app.model.checked, app.model.wrong_ids
+    finally:
+        go.set()
+        thread.join()
+    assert checked == whole.count
+    assert np.array_equal(wrong, recheck(whole, index).wrong_ids)
+    assert "re-check done" in label
 
 
 @pytest.mark.asyncio

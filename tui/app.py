@@ -14,7 +14,7 @@ from __future__ import annotations
 import contextlib
 import threading
 import time
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Iterator
 from functools import partial
 from pathlib import Path
 from typing import Any, ClassVar
@@ -34,6 +34,7 @@ from textual.worker import Worker, WorkerState, get_current_worker
 
 from tracer.analysis import (
     ORACLE_MAX_CITIES,
+    DepthStats,
     FilterError,
     StopCondition,
     TreeIndex,
@@ -107,14 +108,14 @@ class TrailGrew(Message):
 
 class IndexProgress(Message):
     """How far a trail opened block by block has been indexed (bytes of the file);
-    `resting`: the whole file as it is now is read (a live file is then followed)."""
+    `following`: the whole file as it is now is read, and it is followed as it grows."""
 
-    def __init__(self, done: int, size: int, nodes: int, resting: bool) -> None:
+    def __init__(self, done: int, size: int, nodes: int, following: bool) -> None:
         super().__init__()
         self.done = done
         self.size = size
         self.nodes = nodes
-        self.resting = resting
+        self.following = following
 
 
 class Notice(Message):
@@ -154,6 +155,11 @@ class WhyReady(Message):
 
 
 # -- the app -----------------------------------------------------------------------------
+
+
+def _size(count: int) -> str:
+    """Bytes as MB below a gigabyte, else GB."""
+    return f"{count / 1e6:.0f} MB" if count < 10**9 else f"{count / 1e9:.2f} GB"
 
 
 def _binding(keys: str, action: str, description: str, *, show: bool = False) -> Binding:
@@ -241,6 +247,7 @@ class PrunetrailApp(App[None]):
         live = self._follower is not None or (blocks is not None and blocks.indexing and follow)
         self.model = ViewerModel(trail, index, live=live, blocks=blocks)
         self._follow_blocks = follow
+        self._opened_size = blocks.progress[2] if blocks is not None else 0
         self._background = background
         self._stop_follow = threading.Event()
         self.stops = StopCondition(prune=True)
@@ -248,7 +255,11 @@ class PrunetrailApp(App[None]):
         self._play_timer: Timer | None = None
         self._play_target: int | None = None
         self._why_report: WhyReport | None = None
+        self._rechecking = False  # a block-read trail's re-check pass is running
+        self._stats: DepthStats | None = None  # a block-read trail's, once streamed
+        self._passes: dict[str, tuple[int, int]] = {}  # streaming passes running: how far
         self._table: Any = None
+        self._pending_at: int | None = None
         self._start = self._starting_view(at, prefix, filter)
         self._bookmark_file = sidecar_path(trail.path)
         # While a trail read block by block is still indexed, its count is not yet known:
@@ -276,13 +287,20 @@ class PrunetrailApp(App[None]):
             model.apply_filter(" and ".join(clauses))
         except FilterError as exc:
             raise InputError(model.trail.path, f"bad filter: {exc}") from None
-        if prefix and model.index.node_for_prefix(list(model.filter.prefixes[0])) is None:
+        indexing = model.indexing  # what is not indexed yet may still hold the node
+        if (
+            prefix
+            and not indexing
+            and model.index.node_for_prefix(list(model.filter.prefixes[0])) is None
+        ):
             raise InputError(model.trail.path, f"--prefix {prefix}: no node has this path")
-        if at is not None and not 0 <= at < model.count:
+        if at is not None and at >= model.count and indexing:
+            self._pending_at = at  # gone to once indexed that far
+        elif at is not None and not 0 <= at < model.count:
             raise InputError(
                 model.trail.path, f"--at {at}: the trail has nodes 0..{model.count - 1}"
             )
-        if at is not None:
+        elif at is not None:
             return at
         return model.rows.id_at(0) if len(model.rows) else 0
 
@@ -625,11 +643,24 @@ class PrunetrailApp(App[None]):
             self._work_label.update(
                 Text("re-check starts once the trail is indexed", style="dim"), layout=False
             )
-        elif self.model.checked == 0 and self.model.count == blocks.count:
-            self._recheck_blocks(blocks)
+        elif self._rechecking or self.model.count != blocks.count:
+            return  # a pass is running, or a newer snapshot is on its way
+        elif self.model.checked == 0 or (
+            self.model.trail.end is not None and self.model.checked < self.model.count
+        ):
+            # One pass once indexed, and once more over what a live run added by its end
+            # (each pass reads the file from its start, so not at every growth).
+            self._rechecking = True
+            self._recheck_blocks(blocks, self.model.checked, self._recheck_stop())
+
+    def _recheck_stop(self) -> int:
+        """Where a block-read trail's re-check stops: a live trail's last node waits (it may
+        still get its first child, which changes whether its decision was followed)."""
+        model = self.model
+        return model.count - 1 if model.live and model.trail.end is None else model.count
 
     @work(thread=True, exclusive=True, group="recheck", exit_on_error=False)
-    def _recheck_blocks(self, blocks: BlockFile) -> None:
+    def _recheck_blocks(self, blocks: BlockFile, start: int, stop: int) -> None:
         """The re-check of a trail opened block by block: one streaming pass, marks as found."""
         worker = get_current_worker()
         total = self.model.count
@@ -639,10 +670,21 @@ class PrunetrailApp(App[None]):
                 raise _CancelledError
             self.post_message(RecheckProgress(wrong, checked_to, total))
 
-        with contextlib.suppress(_CancelledError):
+        try:
             # Windows of RECHECK_STEP rows, as the in-memory re-check's steps: each numpy
             # pass of the check then holds the interpreter only briefly, so keys stay quick.
-            stream_recheck(blocks, stop=total, first=0, rows=RECHECK_STEP, on_wrong=found)
+            with contextlib.suppress(_CancelledError):
+                stream_recheck(
+                    blocks, start=start, stop=stop, first=0, rows=RECHECK_STEP, on_wrong=found
+                )
+        finally:
+            self.call_from_thread(self._rechecked)
+
+    def _rechecked(self) -> None:
+        """A block-read trail's re-check pass ended: start the next one if the run has."""
+        self._rechecking = False
+        if self._background and self.model.blocks is not None:
+            self._recheck()
 
     @work(thread=True, exclusive=True, group="index", exit_on_error=False)
     def _index_blocks(self, blocks: BlockFile) -> None:
@@ -658,11 +700,14 @@ class PrunetrailApp(App[None]):
             if added and (resting or now - shown >= INDEX_SNAPSHOT_SECONDS):
                 shown = now
                 self.post_message(TrailGrew(*lazy_view(blocks)))
+            following = resting and blocks.indexing and self._follow_blocks
             if added or not resting:
-                self.post_message(IndexProgress(done, size, blocks.count, resting))
+                self.post_message(IndexProgress(done, size, blocks.count, following))
             if not blocks.indexing or (resting and not self._follow_blocks):
                 if not added:  # the model learns that the trail is settled
                     self.post_message(TrailGrew(*lazy_view(blocks)))
+                if blocks.notice:  # where a cut or damaged file stops, now that it is known
+                    self.post_message(Notice(blocks.notice))
                 return
             if resting and self._stop_follow.wait(FOLLOW_INTERVAL):
                 return
@@ -671,12 +716,15 @@ class PrunetrailApp(App[None]):
         if self.model.checked:
             return
         self._work_bar.update(total=max(message.size, 1), progress=message.done)
-        text = (
-            f"indexed {message.nodes:,} nodes; following the file as it grows"
-            if message.resting
-            else f"indexing: {message.done / 1e9:.2f} of {message.size / 1e9:.2f} GB, "
-            f"{message.nodes:,} nodes so far"
-        )
+        if message.following:
+            text = f"indexed {message.nodes:,} nodes; following the file as it grows"
+        elif message.done >= message.size:
+            text = f"indexed {message.nodes:,} nodes"
+        else:
+            text = (
+                f"indexing: {_size(message.done)} of {_size(message.size)}, "
+                f"{message.nodes:,} nodes so far"
+            )
         self._work_label.update(Text(text, style="yellow"), layout=False)
 
     @work(thread=True, exclusive=True, group="recheck", exit_on_error=False)
@@ -779,15 +827,29 @@ class PrunetrailApp(App[None]):
     def on_trail_grew(self, message: TrailGrew) -> None:
         model = self.model
         at_end = model.count == 0 or model.cursor >= model.count - 1
+        before = model.count
         dropped = model.replace_trail(message.trail, message.index)
         if dropped is not None:
             self.notify(dropped, severity="warning", timeout=8, markup=False)
+        if model.count != before:  # what was worked out for fewer nodes is out of date
+            self._stats = self._why_report = None
         self._rows_changed()
+        pending = self._pending_at
+        if pending is not None and (pending < model.count or model.settled):
+            self._pending_at = None
+            at_end = False
+            model.cursor = min(pending, max(model.count - 1, 0))
         self.goto(model.count - 1 if at_end else model.cursor)
-        if model.trail.end is not None:
+        if model.trail.end is not None and self._grew_while_open(message.trail):
             self.notify(f"the run ended: {model.status}", timeout=5, markup=False)
         if self._background:
             self._recheck()
+
+    def _grew_while_open(self, trail: Trail) -> bool:
+        """Whether the file grew while the viewer had it open (not merely indexed late)."""
+        if self.model.blocks is None:
+            return True  # only a followed trail in memory grows
+        return self.model.blocks.progress[2] > self._opened_size
 
     def on_notice(self, message: Notice) -> None:
         self.notify(message.reason, severity="warning", timeout=10, markup=False)
@@ -822,6 +884,8 @@ class PrunetrailApp(App[None]):
         if not self.model.settled:
             self.notify("why once the trail is indexed", timeout=4, markup=False)
             return
+        if self._told_progress("why"):
+            return
         if self.model.blocks is not None:
             self.notify(
                 f"following the optimal tour through all {self.model.count:,} nodes "
@@ -830,6 +894,8 @@ class PrunetrailApp(App[None]):
             )
         else:
             self.notify("looking for where the optimal tour's branch was cut…", timeout=3)
+        if self.model.blocks is not None:
+            self._passes["why"] = (0, self.model.count)
         self._explain(show)
 
     @work(thread=True, exclusive=True, group="why", exit_on_error=False)
@@ -840,7 +906,13 @@ class PrunetrailApp(App[None]):
             table = completion_table(model.trail.header.instance)
             self._table = table
         if model.blocks is not None:
-            report = stream_explain(model.blocks, tour=None, table=table)
+            try:
+                with self._pass("why") as progress:
+                    report = stream_explain(
+                        model.blocks, tour=None, table=table, on_progress=progress
+                    )
+            except _CancelledError:
+                return
         else:
             report = explain(
                 model.trail, model.index, tour=None, table=table, completions=model.completions
@@ -868,20 +940,47 @@ class PrunetrailApp(App[None]):
         blocks = self.model.blocks
         if blocks is None:
             self.push_screen(StatsScreen.from_model(self.model))
+        elif self._stats is not None:
+            self.push_screen(StatsScreen(self._stats, title=self.model.trail.header.instance.name))
         elif not self.model.settled:
             self.notify("statistics once the trail is indexed", timeout=4, markup=False)
-        else:
+        elif not self._told_progress("stats"):
             self.notify(f"reading all {self.model.count:,} nodes for the statistics…", timeout=4)
+            self._passes["stats"] = (0, self.model.count)
             self._stream_stats(blocks)
 
     @work(thread=True, exclusive=True, group="stats", exit_on_error=False)
     def _stream_stats(self, blocks: BlockFile) -> None:
-        from tui.stats_screen import StatsScreen
+        try:
+            with self._pass("stats") as progress:
+                self._stats = stream_stats(blocks, on_progress=progress)
+        except _CancelledError:
+            return
+        self.call_from_thread(self.action_stats)
 
-        stats = stream_stats(blocks)
-        self.call_from_thread(
-            self.push_screen, StatsScreen(stats, title=self.model.trail.header.instance.name)
-        )
+    @contextlib.contextmanager
+    def _pass(self, name: str) -> Iterator[Callable[[int, int], None]]:
+        """Run one streaming pass of a worker: its progress is kept under `name` (for
+        `_told_progress`), and it stops at the next window once the worker is cancelled."""
+        worker = get_current_worker()
+
+        def progress(done: int, total: int) -> None:
+            if worker.is_cancelled:
+                raise _CancelledError
+            self._passes[name] = (done, total)
+
+        try:
+            yield progress
+        finally:
+            self._passes.pop(name, None)
+
+    def _told_progress(self, name: str) -> bool:
+        """Whether a streaming pass `name` is running (then the user is told how far)."""
+        running = self._passes.get(name)
+        if running is not None:
+            done, total = running
+            self.notify(f"{name}: {done:,} of {total:,} nodes read", timeout=3, markup=False)
+        return running is not None
 
     # -- bookmarks -----------------------------------------------------------------------
 

@@ -65,7 +65,10 @@ def open_for_viewing(
         from tracer.analysis import lazy_view
 
         trail, index = lazy_view(blocks)
-        return Opened(trail, blocks.notice, None, index, blocks)
+        # While the rest is still to be indexed, where the first scan stopped is no news
+        # (the viewer says where the file stops, if it does, once it is indexed).
+        partial = blocks.indexing and not blocks.at_end
+        return Opened(trail, None if partial else blocks.notice, None, index, blocks)
     try:
         trail = open_trail(p)
     except CorruptTrailError as exc:

@@ -42,8 +42,8 @@ OPEN = "no end"
 INDEXING = "indexing"
 #: Node ids the re-check handles per background step (marks appear after each).
 RECHECK_STEP = 1 << 16
-#: Ids a run over decision-filtered rows of a block-read trail looks at first, and at most
-#: at a time (the range grows fourfold each time nothing matches).
+#: Ids a run over the rows of a block-read trail looks at first, and at most at a time (the
+#: range grows fourfold each time nothing matches).
 RUN_FIRST_IDS = 1 << 12
 RUN_MOST_IDS = 1 << 22
 #: Most nodes a filter may read one by one (a depth or ratio clause) in a trail opened block by
@@ -236,14 +236,15 @@ class ViewerModel:
             lo, hi = kept_range(node_filter, self.index)
             codes = frozenset.intersection(*node_filter.decisions)
             return RowView(lo, hi, ranks=self.index.decision_ranks(codes))
-        if self.blocks is not None and (node_filter.depths or node_filter.ratios):
+        scans = (node_filter.depths or node_filter.ratios) and not node_filter.wrong
+        if self.blocks is not None and scans:
             lo, hi = kept_range(node_filter, self.index)
             if hi - lo > BLOCK_SCAN_LIMIT:
                 raise FilterError(
                     f"this filter reads each of the {hi - lo:,} nodes in its range, more than "
                     f"{BLOCK_SCAN_LIMIT:,} in a trail read block by block: narrow it with "
                     "'under' a path first",
-                    0,
+                    None,
                 )
         return RowView(0, 0, kept_ids(node_filter, self.trail, self.index, self.wrong_ids))
 
@@ -358,44 +359,36 @@ class ViewerModel:
     def run_until(self, condition: StopCondition, node: int, direction: int) -> int | None:
         """The next node (in the rows shown) where the condition holds, or None."""
         rows = self.rows
-        if self.blocks is not None and rows.ranks is not None:
-            return self._run_over_ranks(condition, node, direction)
+        if self.blocks is not None and rows.ids_array is None:
+            return self._run_in_rows(condition, node, direction)
         kept = rows.kept()
-        found = next_match(
-            condition,
-            self.trail,
-            self.index,
-            node,
-            direction,
-            wrong_ids=self.wrong_ids,
-            kept=kept,
-        )
+        found = self._next(condition, node, direction, kept)
         if found is None or kept is not None:
             return found
         return found if rows.lo <= found < rows.hi else None
 
-    def _run_over_ranks(self, condition: StopCondition, node: int, direction: int) -> int | None:
-        """`run_until` over decision-filtered rows of a block file: the kept ids of growing
-        id ranges leaving `node` are the candidates (no array of every kept id)."""
+    def _next(
+        self, condition: StopCondition, node: int, direction: int, kept: NDArray[np.int64] | None
+    ) -> int | None:
+        return next_match(
+            condition, self.trail, self.index, node, direction, wrong_ids=self.wrong_ids, kept=kept
+        )
+
+    def _run_in_rows(self, condition: StopCondition, node: int, direction: int) -> int | None:
+        """`run_until` over the range (or decision-filtered) rows of a block file: the kept
+        ids of growing id ranges leaving `node`, inside the rows' range, are the candidates
+        (no array of every kept id, and nothing read beyond the range)."""
         rows, ranks = self.rows, self.rows.ranks
-        assert ranks is not None
         size = RUN_FIRST_IDS
-        lo, hi = (node + 1, node + 1) if direction >= 0 else (node, node)
+        edge = max(node + 1, rows.lo) if direction >= 0 else min(node, rows.hi)
+        lo = hi = edge
         while (direction >= 0 and hi < rows.hi) or (direction < 0 and lo > rows.lo):
             if direction >= 0:
                 lo, hi = hi, min(rows.hi, hi + size)
             else:
                 lo, hi = max(rows.lo, lo - size), lo
-            kept = ranks.between(lo, hi - 1)
-            found = next_match(
-                condition,
-                self.trail,
-                self.index,
-                node,
-                direction,
-                wrong_ids=self.wrong_ids,
-                kept=kept,
-            )
+            ids = np.arange(lo, hi, dtype=np.int64) if ranks is None else ranks.between(lo, hi - 1)
+            found = self._next(condition, node, direction, ids)
             if found is not None:
                 return found
             size = min(size * 4, RUN_MOST_IDS)

@@ -35,7 +35,7 @@ class _PerNode:
 
     def __getitem__(self, key: Any) -> Any:
         if isinstance(key, (int, np.integer)):
-            node = int(key)
+            node = int(key) + self._count if key < 0 else int(key)
             if not 0 <= node < self._count:
                 raise IndexError(f"node {node} is outside 0..{self._count - 1}")
             return min(self._value(node), self._count)
@@ -138,7 +138,7 @@ class LazyDecisionRanks(DecisionRanks):
 
     def between(self, first: int, last: int) -> NDArray[np.int64]:
         """Ids of the kept nodes in [first, last], ascending."""
-        values = self._file.column(DECISION, first, last + 1)
+        values = self._file.column(DECISION, first, min(last + 1, self.count))
         return np.flatnonzero(self.table[values]).astype(np.int64) + first
 
 

@@ -50,10 +50,11 @@ _FIRST_CHUNK = 1 << 12
 
 
 class FilterError(ValueError):
-    """A filter or stop text that does not parse; `position` is the 0-based column."""
+    """A filter or stop text that does not parse, or cannot be applied; `position` is the
+    0-based column where it stops making sense (None: the text as a whole)."""
 
-    def __init__(self, message: str, position: int) -> None:
-        super().__init__(f"{message} (at column {position + 1})")
+    def __init__(self, message: str, position: int | None) -> None:
+        super().__init__(message if position is None else f"{message} (at column {position + 1})")
         self.message = message
         self.position = position
 

@@ -693,7 +693,9 @@ def recompute_node(trail: Trail, index: TreeIndex, node: int) -> dict[str, float
     return recompute_row(CheckRule(trail, index), node)
 
 
-def _recompute_in_window(trail: Trail, index: LazyTreeIndex, node: int) -> dict[str, Any]:
+def _recompute_in_window(
+    trail: Trail, index: LazyTreeIndex, node: int
+) -> dict[str, float | int | None]:
     """`recompute_node` on a trail read block by block: in a window of the search's path
     before the node, the node and its lookahead, as the streaming re-check cuts them."""
     before = node - 1

@@ -189,7 +189,7 @@ def stream_recheck(
         start, stop, first, on_progress, strict: as for `recheck`.
         rows: records per window (default `chunk_rows`, as the in-memory check uses).
         on_wrong: called after each window with its wrong ids and the id checked up to
-            (a viewer marks them as they are found).
+            (a viewer marks them as they are found); it may raise to stop the pass.
     """
     total = source.count
     stop = total if stop is None else min(stop, total)
@@ -236,9 +236,15 @@ def _dtypes(source: BlockSource) -> list[tuple[str, Any]]:
     return [(column.name, column.dtype) for column in source.header.columns]
 
 
-def stream_stats(source: BlockSource, table: CompletionTable | None = None) -> DepthStats:
+def stream_stats(
+    source: BlockSource,
+    table: CompletionTable | None = None,
+    *,
+    on_progress: Callable[[int, int], None] | None = None,
+) -> DepthStats:
     """`depth_stats` over a block source; with `table`, tightness against the oracle's best
-    completion of every node (`best_completions`), as with in-memory completions."""
+    completion of every node (`best_completions`), as with in-memory completions.
+    `on_progress(done, total)` is called after each window (it may raise to stop)."""
     tally = DepthTally(source.header, source.best, source.end)
     for window in windows(source):
         completions = None
@@ -246,6 +252,8 @@ def stream_stats(source: BlockSource, table: CompletionTable | None = None) -> D
             lo, hi = window.seeded, window.seeded + window.count
             completions = best_completions(window.trail, window.index, table)[lo:hi]
         tally.add(window.own(), window.first, completions)
+        if on_progress is not None:
+            on_progress(window.first + window.count, source.count)
     return tally.finish(oracle=table is not None)
 
 
@@ -256,9 +264,11 @@ def stream_explain(
     table: CompletionTable | None,
     harmful_shown: int = HARMFUL_SHOWN,
     rows: int | None = None,
+    on_progress: Callable[[int, int], None] | None = None,
 ) -> WhyReport:
     """`explain` over a block source: the same report, in one pass over the blocks
-    (`rows`: records per window, default `chunk_rows`)."""
+    (`rows`: records per window, default `chunk_rows`; `on_progress(done, total)` after
+    each window, which may raise to stop)."""
     matrix, cycle = reference_cycle(source, tour, table)
     follow = Follow(cycle)
     harm = Harm(matrix, harmful_shown) if table is not None else None
@@ -268,6 +278,8 @@ def stream_explain(
         if harm is not None and table is not None:
             completions = best_completions(window.trail, window.index, table)[lo:hi]
             harm.add(window.trail, window.index, window.ids, lo, hi, completions)
+        if on_progress is not None:
+            on_progress(window.first + window.count, source.count)
     return judged(source, follow, harm, table, matrix)
 
 

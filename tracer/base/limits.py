@@ -85,5 +85,5 @@ MAX_HEADER_ITEMS = MAX_TRAIL_CITIES * MAX_TRAIL_CITIES
 MIN_NODE_ID, MAX_NODE_ID = -(2**63), 2**63 - 1
 #: The default memory setting (MB) of the commands that can read a trail block by block: a
 #: trail whose in-memory analysis needs more (`in_memory_bytes`) is read block by block. A
-#: quarter of a 8 GB machine, leaving room for the rest.
+#: quarter of an 8 GB machine, leaving room for the rest.
 DEFAULT_MEMORY_MB = 2048

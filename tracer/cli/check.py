@@ -96,6 +96,13 @@ def register(sub: argparse._SubParsersAction[argparse.ArgumentParser]) -> None:
     p.set_defaults(run=run)
 
 
+def _scratch_dir(path: str) -> str | None:
+    """Where a temporary trail goes: beside the trace (the system's temp folder is often
+    memory-backed, which the memory setting is there to spare), else the temp folder."""
+    folder = Path(path).resolve().parent
+    return str(folder) if os.access(folder, os.W_OK | os.X_OK) else None
+
+
 def add_memory_option(p: argparse.ArgumentParser, *, jsonl_streams: bool = True) -> None:
     """The --memory-mb option of the commands that can read a trail block by block
     (`jsonl_streams`: a large .jsonl goes through a temporary trail, as for `check`)."""
@@ -142,7 +149,7 @@ def sized_trace(path: str, memory_mb: int) -> Iterator[Trail | BlockFile]:
         else:
             yield trace
         return
-    with tempfile.TemporaryDirectory(prefix="prunetrail-") as folder:
+    with tempfile.TemporaryDirectory(prefix=".prunetrail-", dir=_scratch_dir(path)) as folder:
         streamed = _streamed(path, Path(folder))
         if streamed is not None:
             with streamed:

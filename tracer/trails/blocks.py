@@ -247,6 +247,7 @@ class BlockScanner:
         self._frames = FrameLog(str(self.path))
         self._top = 0
         self._ended = False
+        self._read = 0
         self.index: BlockIndex | None = None
 
     def step(self, max_bytes: int | None = None) -> BlockIndex | None:
@@ -265,6 +266,7 @@ class BlockScanner:
             if want <= 0:
                 break
             data = self._handle.read(want)
+            self._read += len(data)
             if data:
                 self.frame_unpacker.feed(data)
                 left = None if left is None else left - len(data)
@@ -288,8 +290,9 @@ class BlockScanner:
 
     @property
     def bytes_read(self) -> int:
-        """How far into the file the scan has read."""
-        return self._handle.tell()
+        """How far into the file the scan has read (a count kept by `step`, so another
+        thread asking never sees the handle where a size check left it)."""
+        return self._read
 
     def close(self) -> None:
         """Release the file."""
@@ -499,6 +502,7 @@ def _index_table(
         ((col["codec"] >= 0) & (col["codec"] < len(CODECS))).all(),
         ((col["min_depth"] >= 0) & (col["min_depth"] <= col["max_depth"])).all(),
         (col["max_depth"] < n).all() and ((col["entry_top"] >= 0) & (col["entry_top"] <= n)).all(),
+        col["entry_top"][0] == 0,  # nothing is open before the first record
         (table[:, _DECISIONS] >= 0).all() and (table[:, _DECISIONS].sum(axis=1) == count).all(),
     )
     if not all(checks):

@@ -237,7 +237,8 @@ class BlockFile:
 
     def close(self) -> None:
         """Release the file (and the scanner of a live one)."""
-        self._handle.close()
+        with self._lock:  # not in the middle of another thread's read
+            self._handle.close()
         if self._scanner is not None:
             self._scanner.close()
         self._cache.clear()
@@ -416,7 +417,7 @@ class BlockTree:
             return node + 1
         d = self.depth(node)
         block = self._file._block(node)
-        first = self._file.index.values("first")
+        first = self._file.index.values("first")  # rows indexed now; later reads keep to them
         start = int(first[block])
         depth = self._file._cached(block, DEPTH)
         hit = np.flatnonzero(depth[node + 1 - start :] <= d)
@@ -426,9 +427,10 @@ class BlockTree:
         found = far.get(node)
         if found is not None:
             return found
-        later = np.flatnonzero(self._file.index.values("min_depth")[block + 1 :] <= d)
+        min_depth = self._file.index.values("min_depth")[: len(first)]
+        later = np.flatnonzero(min_depth[block + 1 :] <= d)
         if not len(later):
-            return self._file.count  # so far: a growing file may still close it
+            return int(first[-1] + self._file.index.values("count")[len(first) - 1])
         block += 1 + int(later[0])
         hit = np.flatnonzero(self._file._cached(block, DEPTH) <= d)
         found = int(first[block]) + int(hit[0])
@@ -503,7 +505,7 @@ class BlockTree:
         hit = np.flatnonzero(own == code)
         if len(hit):
             return start + int(hit[0])
-        later = np.flatnonzero(index.decisions[block + 1 :, code] > 0)
+        later = np.flatnonzero(index.decisions[block + 1 : len(first), code] > 0)
         if not len(later):
             return None
         block += 1 + int(later[0])
@@ -534,6 +536,8 @@ class BlockTree:
         """The last id before `before` at `depth` or above: in the block of `before - 1`, or
         else in the last earlier block whose minimum depth allows it (one array search)."""
         index = self._file.index
+        if before <= 0:  # a written index claiming ancestors open before the first record
+            raise CorruptTrailError(self._file.path, 0, f"no record before id {before}", None)
         first = index.values("first")
         block = index.block_of(before - 1)
         values = self._file._cached(block, DEPTH)[: before - int(first[block])]
@@ -623,6 +627,8 @@ class LazyColumn:
         return 1 + len(self._row_shape)
 
     def __getitem__(self, key: Any) -> Any:
+        if isinstance(key, tuple):
+            raise IndexError("a lazy column is indexed by one id, slice or id array")
         if isinstance(key, slice):
             lo, hi, step = key.indices(self._count)
             if step != 1:
@@ -636,9 +642,35 @@ class LazyColumn:
         return self._take(np.asarray(key))
 
     def __array__(self, *args: Any, **kwargs: Any) -> NDArray[Any]:
-        raise TypeError(
+        raise self._whole()
+
+    def _whole(self) -> TypeError:
+        return TypeError(
             f"column {self.name!r} of a trail read block by block is read by id range, not whole"
         )
+
+    def __iter__(self) -> Iterator[Any]:
+        raise self._whole()
+
+    def __eq__(self, other: object) -> Any:
+        raise self._whole()
+
+    def __ne__(self, other: object) -> Any:
+        raise self._whole()
+
+    def __lt__(self, other: object) -> Any:
+        raise self._whole()
+
+    def __le__(self, other: object) -> Any:
+        raise self._whole()
+
+    def __gt__(self, other: object) -> Any:
+        raise self._whole()
+
+    def __ge__(self, other: object) -> Any:
+        raise self._whole()
+
+    __hash__ = None  # type: ignore[assignment]
 
     def _take(self, ids: NDArray[Any]) -> NDArray[Any]:
         """The values at `ids` (any order), decoding each block involved once."""
@@ -651,8 +683,9 @@ class LazyColumn:
             return out.reshape((*ids.shape, *self._row_shape))
         if int(flat.min()) < 0 or int(flat.max()) >= self._count:
             raise IndexError(f"ids outside 0..{self._count - 1}")
-        order = np.argsort(flat, kind="stable")
-        ordered = flat[order]
+        ascending = bool((flat[1:] >= flat[:-1]).all())  # the usual case: rows, id ranges
+        order = np.arange(len(flat)) if ascending else np.argsort(flat, kind="stable")
+        ordered = flat if ascending else flat[order]
         first = self._file.index.values("first")
         blocks = np.searchsorted(first, ordered, side="right") - 1
         cuts = np.flatnonzero(np.diff(blocks)) + 1  # where the block changes
