@@ -254,6 +254,9 @@ def test_lazy_tree_index_equals_tree_index(
         assert lazy_index.node_for_prefix(absent) is index.node_for_prefix(absent) is None
     for node in nodes[:15]:
         assert lazy_index.children(node) == index.children(node), node
+    assert lazy_index.paths(nodes) == [index.path(node) for node in nodes]
+    run = range(max(nodes[len(nodes) // 2] - 20, 0), min(nodes[len(nodes) // 2] + 20, index.count))
+    assert lazy_index.paths(run) == [index.path(node) for node in run]
     for prefix in ([], [1], [0, 99], [0, whole.n + 3]):
         assert lazy_index.node_for_prefix(prefix) == index.node_for_prefix(prefix), prefix
     _same_counts_and_ranks(file, index, lazy_index)

@@ -94,6 +94,9 @@ def test_prefix_lookup_and_incumbents_on_a_real_trail(load_reference) -> None:
     for node in rng.integers(0, index.count, 200).tolist():
         assert index.node_for_prefix(index.path(node)) == node
     assert index.node_for_prefix([0, 0]) is None and index.node_for_prefix([5]) is None
+    for start in rng.integers(0, index.count - 50, 5).tolist():  # a screen of rows, a sample
+        for nodes in (range(start, start + 50), sorted(rng.integers(0, index.count, 30))):
+            assert index.paths(nodes) == [index.path(int(n)) for n in nodes]
     ats = [b.at for b in sink.best]
     probe = np.array(sorted({0, *ats, *(a - 1 for a in ats if a > 0), index.count - 1}))
     got = index.incumbent_at(probe)

@@ -33,7 +33,7 @@ from tracer.analysis import (
 from tracer.base import DECISION, DECISION_NAMES, LINK_IN, LINK_OUT, PARTIAL, TREE, InputError
 from tracer.cli import main as tracer_main
 from tracer.trails import TrailWriter, open_trail
-from tui.app import PrunetrailApp, RecheckProgress
+from tui.app import SPEEDS, PlayStop, PrunetrailApp, RecheckProgress
 from tui.bookmarks import sidecar_path
 from tui.cli import main as viewer_main
 from tui.dialogs import BookmarksScreen, HelpScreen, StopDialog
@@ -310,6 +310,45 @@ async def test_stop_dialog_and_runs(faulty):
         await pilot.click("#stop-use")
         assert app.stops == parse_stops("prune, wrong, under 0 7 10, depth 4")
         await _check_stops(app, pilot, ["wrong", "incumbent, depth 6"])
+
+
+@pytest.mark.asyncio
+async def test_play_pauses_where_the_stop_list_holds(faulty):
+    """Space plays on to the next node meeting the stop list (found off the UI thread) and
+    pauses there; a stop found only after play went past it brings the cursor back."""
+    app = _app(faulty)
+    async with app.run_test(size=SIZE) as pilot:
+        _without_map(app)
+        model = app.model
+        app.goto(40)
+        for depth in range(1, 14):  # a depth first met again some steps ahead
+            cond = parse_stops(f"depth {depth}")
+            expected = next_match(cond, model.trail, model.index, 40, 1, wrong_ids=None)
+            if expected is not None and 5 < expected - 40 < 300:
+                break
+        assert expected is not None and 5 < expected - 40 < 300, "a stop some steps ahead"
+        app.stops = cond
+        app._set_speed(len(SPEEDS) - 1)
+        await pilot.press("space")
+        for _ in range(100):
+            await pilot.pause(0.05)
+            if app._play_timer is None:
+                break
+        assert app._play_timer is None and app.cursor == expected
+        await pilot.press("space")  # plays on from the stop, to the next one
+        await app.workers.wait_for_complete()
+        await pilot.pause()
+        after = app._play_target
+        assert after == next_match(cond, model.trail, model.index, expected, 1, wrong_ids=None)
+        app._pause()
+        app.goto(after + 5)  # as if play went past the stop before the search ended
+        app._play_timer = app.set_interval(60, app._tick)
+        app.post_message(PlayStop(after, app._play_run - 1))  # out of date: ignored
+        await pilot.pause()
+        assert app.cursor == after + 5 and app._play_timer is not None
+        app.post_message(PlayStop(after, app._play_run))
+        await pilot.pause()
+        assert app.cursor == after and app._play_timer is None
 
 
 @pytest.mark.thorough

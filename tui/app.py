@@ -136,6 +136,15 @@ class RunFinished(Message):
         self.what = what
 
 
+class PlayStop(Message):
+    """Where the play started as `run` pauses: the next node meeting the stop list."""
+
+    def __init__(self, node: int, run: int) -> None:
+        super().__init__()
+        self.node = node
+        self.run = run
+
+
 class OracleReady(Message):
     """The exact completion of every node is known."""
 
@@ -254,6 +263,7 @@ class PrunetrailApp(App[None]):
         self._speed = 3
         self._play_timer: Timer | None = None
         self._play_target: int | None = None
+        self._play_run = 0  # bumped whenever a stop being looked for goes out of date
         self._why_report: WhyReport | None = None
         self._rechecking = False  # a block-read trail's re-check pass is running
         self._stats: DepthStats | None = None  # a block-read trail's, once streamed
@@ -527,7 +537,7 @@ class PrunetrailApp(App[None]):
         def chosen(condition: StopCondition | None) -> None:
             if condition is not None:
                 self.stops = condition
-                self._play_target = None
+                self._forget_play_stop()
                 self._update_top()
 
         self.push_screen(StopDialog(self.stops), chosen)
@@ -564,11 +574,35 @@ class PrunetrailApp(App[None]):
         if self._play_timer is not None:
             self._pause()
             return
-        self._play_target = None
+        self._forget_play_stop()
         if not self.stops.empty:
-            self._play_target = self.model.run_until(self.stops, self.cursor, 1)
+            self._find_play_stop(self.stops, self.cursor, self._play_run)
         self._play_timer = self.set_interval(1 / SPEEDS[self._speed], self._tick)
         self._update_top()
+
+    def _forget_play_stop(self) -> None:
+        self._play_target = None
+        self._play_run += 1
+
+    @work(thread=True, exclusive=True, group="play", exit_on_error=False)
+    def _find_play_stop(self, condition: StopCondition, start: int, run: int) -> None:
+        """Where play pauses, looked for off the UI thread (on a trail read block by block, a
+        rare stop can take seconds to reach); the play goes on meanwhile."""
+        found = self.model.run_until(condition, start, 1)
+        if found is not None and not get_current_worker().is_cancelled:
+            self.post_message(PlayStop(found, run))
+
+    def on_play_stop(self, message: PlayStop) -> None:
+        if message.run != self._play_run or self._play_timer is None:
+            return
+        self._play_target = message.node
+        if self.cursor >= message.node:  # played past it before it was found
+            self._pause_at(message.node)
+
+    def _pause_at(self, node: int) -> None:
+        self.goto(node)
+        self._pause()
+        self.notify(f"paused: node {node} meets the stop list", timeout=3)
 
     def _pause(self) -> None:
         if self._play_timer is not None:
@@ -581,10 +615,11 @@ class PrunetrailApp(App[None]):
         if node is None:
             self._pause()
             return
-        self.goto(node)
-        if self._play_target is not None and node >= self._play_target:
-            self._pause()
-            self.notify(f"paused: node {node} meets the stop list", timeout=3)
+        target = self._play_target
+        if target is not None and node >= target:
+            self._pause_at(target)
+        else:
+            self.goto(node)
 
     def _set_speed(self, index: int) -> None:
         self._speed = max(0, min(index, len(SPEEDS) - 1))
@@ -631,7 +666,7 @@ class PrunetrailApp(App[None]):
     def _rows_changed(self) -> None:
         nodes = self._node_list
         nodes.reload()
-        self._play_target = None
+        self._forget_play_stop()
 
     # -- background work -----------------------------------------------------------------
 

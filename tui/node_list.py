@@ -280,6 +280,7 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
         wrong = model.wrong_mask(ids)
         depth = model.index.depth[ids]
         decision = model.index.decision[ids]
+        paths = model.index.paths(ids.tolist())
         id_w, path_w = self._column_widths(width)
         styles = self._style_table()
         base = styles["base"]
@@ -297,7 +298,7 @@ class NodeList(ScrollView, can_focus=True, inherit_bindings=False):
                 format_number(bound[i], integral).rjust(_NUM),
                 format_number(incumbent[i], integral).rjust(_NUM),
             ]
-            path = shorten_path(model.index.path(node), path_w).ljust(path_w)
+            path = shorten_path(paths[i], path_w).ljust(path_w)
             lead = f" {node:>{id_w}} {int(depth[i]):>3} "
             middle = " " + " ".join(numbers) + "  "
             # Every character in a row is one cell wide, so the row is cut to the width

@@ -12,7 +12,7 @@ byte for counts.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from typing import Any
 
 import numpy as np
@@ -68,6 +68,23 @@ class TreeIndex:
             cities.append(int(self.city[node]))
             node = int(self.parent[node])
         return cities[::-1]
+
+    def paths(self, nodes: Iterable[int]) -> list[list[int]]:
+        """`path` of several nodes: a walk stops at an ancestor met before (the rows on a
+        screen share most of their paths, so each costs about one lookup)."""
+        known: dict[int, list[int]] = {}
+        out: list[list[int]] = []
+        for node in nodes:
+            walked: list[int] = []
+            while node >= 0 and node not in known:
+                walked.append(node)
+                node = int(self.parent[node])
+            path = known.get(node, [])
+            for step in reversed(walked):
+                path = [*path, int(self.city[step])]
+                known[step] = path
+            out.append(path)
+        return out
 
     def ancestors(self, node: int) -> list[int]:
         """Ids from the root down to `node`, inclusive."""

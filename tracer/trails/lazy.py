@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import threading
 from collections import OrderedDict
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator
 from pathlib import Path
 from types import TracebackType
 from typing import Any, BinaryIO, cast
@@ -374,7 +374,7 @@ class BlockFile:
 
 
 class BlockTree:
-    """Parents, subtree ends, paths, prefixes and counts of a `BlockFile`, by its summaries.
+    """Parents, subtree ends, paths and decision counts of a `BlockFile`, by its summaries.
 
     The names and answers are `TreeIndex`'s; only the blocks that can hold an answer are
     decoded (through the file's cache), every other block is skipped by its summary.
@@ -387,10 +387,6 @@ class BlockTree:
     def count(self) -> int:
         """How many records the tree has (so far, for a live file)."""
         return self._file.count
-
-    def subtree(self, node: int) -> tuple[int, int]:
-        """The id range [start, stop) of `node`'s subtree."""
-        return node, self.subtree_end(node)
 
     def depth(self, node: int) -> int:
         """The depth of record `node`."""
@@ -466,51 +462,6 @@ class BlockTree:
                     value = self.parent(node)
                 node = value
         return ids, cities
-
-    def children(self, node: int) -> list[int]:
-        """Ids of `node`'s children, in order (jumping over each child's subtree)."""
-        out: list[int] = []
-        child, stop = node + 1, self.subtree_end(node)
-        while child < stop:
-            out.append(child)
-            child = self.subtree_end(child)
-        return out
-
-    def node_for_prefix(self, prefix: Sequence[int]) -> int | None:
-        """The node whose path is exactly `prefix`, or None if it was not recorded."""
-        if not prefix or self._file.count == 0 or int(self._file._at(CITY, 0)) != prefix[0]:
-            return None
-        node = 0
-        for city in prefix[1:]:
-            match = None
-            child, stop = node + 1, self.subtree_end(node)
-            while child < stop:
-                if int(self._file._at(CITY, child)) == city:
-                    match = child
-                    break
-                child = self.subtree_end(child)
-            if match is None:
-                return None
-            node = match
-        return node
-
-    def next_decision(self, code: int, after: int) -> int | None:
-        """The first id after `after` whose decision is `code`, or None."""
-        index, start = self._file.index, max(after + 1, 0)
-        if start >= self._file.count:
-            return None
-        first = index.values("first")
-        block = index.block_of(start)
-        own = self._file._cached(block, DECISION)[start - int(first[block]) :]
-        hit = np.flatnonzero(own == code)
-        if len(hit):
-            return start + int(hit[0])
-        later = np.flatnonzero(index.decisions[block + 1 : len(first), code] > 0)
-        if not len(later):
-            return None
-        block += 1 + int(later[0])
-        hit = np.flatnonzero(self._file._cached(block, DECISION) == code)
-        return int(first[block]) + int(hit[0])
 
     def decision_counts(self, start: int = 0, stop: int | None = None) -> dict[str, int]:
         """How many records in [start, stop) took each decision: whole blocks by summary."""
