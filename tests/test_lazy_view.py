@@ -10,6 +10,7 @@ questions as `read_trail` and `TreeIndex`; then the viewer's model and the app i
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import math
 import threading
@@ -757,6 +758,33 @@ def _write_blocks(writer: TrailWriter, trail: Trail, lo: int, hi: int, size: int
         writer.write_nodes({k: v[start:stop] for k, v in trail.columns.items()})
 
 
+@contextlib.contextmanager
+def _live_run(
+    path: Path, trail: Trail, first: int, step: int, pause: float
+) -> Iterator[threading.Event]:
+    """A run writing `trail` to `path`: records [0, first) at once, then, once the event it
+    yields is set, the rest `step` at a time `pause` seconds apart, and the run's end."""
+    writer = TrailWriter(path, trail.header, threaded=False)
+    _write_blocks(writer, trail, 0, first, 1000)
+    go = threading.Event()
+
+    def write_rest() -> None:
+        go.wait(10)
+        for lo in range(first, trail.count, step):
+            _write_blocks(writer, trail, lo, min(lo + step, trail.count), 1000)
+            time.sleep(pause)
+        assert trail.end is not None
+        writer.close(trail.end)
+
+    thread = threading.Thread(target=write_rest)
+    thread.start()
+    try:
+        yield go
+    finally:
+        go.set()
+        thread.join()
+
+
 @pytest.mark.asyncio
 async def test_live_trail_grows_in_the_block_viewer(
     memory: dict[str, tuple[Trail, TreeIndex]],
@@ -770,21 +798,7 @@ async def test_live_trail_grows_in_the_block_viewer(
     monkeypatch.setattr(tui.app, "FOLLOW_INTERVAL", 0.1)
     monkeypatch.setattr(tui.app, "INDEX_SNAPSHOT_SECONDS", 0.1)
     path = tmp_path / "live.trail"
-    writer = TrailWriter(path, whole.header, threaded=False)
-    _write_blocks(writer, whole, 0, 30_000, 1000)
-    go = threading.Event()
-
-    def write_rest() -> None:
-        go.wait(10)
-        for lo in range(30_000, whole.count, 1000):
-            _write_blocks(writer, whole, lo, lo + 1000, 1000)
-            time.sleep(0.1)
-        assert whole.end is not None
-        writer.close(whole.end)
-
-    thread = threading.Thread(target=write_rest)
-    thread.start()
-    try:
+    with _live_run(path, whole, 30_000, 1000, 0.1) as go:
         app = PrunetrailApp(path, memory_mb=1, background=False)
         counts = []
         async with app.run_test(size=SIZE) as pilot:
@@ -797,9 +811,6 @@ async def test_live_trail_grows_in_the_block_viewer(
                 if app.model.trail.end is not None:
                     break
             assert app.model.trail.end == whole.end and not app.model.live
-    finally:
-        go.set()
-        thread.join()
     assert counts == sorted(counts) and counts[-1] == whole.count
     assert len(set(counts)) > 2, "the count grew step by step"
 
@@ -817,21 +828,7 @@ async def test_live_block_trail_is_rechecked_to_its_end(
     monkeypatch.setattr(tui.app, "FOLLOW_INTERVAL", 0.1)
     monkeypatch.setattr(tui.app, "INDEX_SNAPSHOT_SECONDS", 0.1)
     path = tmp_path / "live.trail"
-    writer = TrailWriter(path, whole.header, threaded=False)
-    _write_blocks(writer, whole, 0, 20_000, 1000)
-    go = threading.Event()
-
-    def write_rest() -> None:
-        go.wait(10)
-        for lo in range(20_000, whole.count, 5000):
-            _write_blocks(writer, whole, lo, min(lo + 5000, whole.count), 1000)
-            time.sleep(0.2)
-        assert whole.end is not None
-        writer.close(whole.end)
-
-    thread = threading.Thread(target=write_rest)
-    thread.start()
-    try:
+    with _live_run(path, whole, 20_000, 5000, 0.2) as go:
         app = PrunetrailApp(path, memory_mb=1)
         async with app.run_test(size=SIZE) as pilot:
             for _ in range(50):  # the first pass, over the first snapshot
@@ -847,9 +844,6 @@ async def test_live_block_trail_is_rechecked_to_its_end(
                     break
             label = str(app._work_label.render())
             checked, wrong = app.model.checked, app.model.wrong_ids
-    finally:
-        go.set()
-        thread.join()
     assert checked == whole.count
     assert np.array_equal(wrong, recheck(whole, index).wrong_ids)
     assert "re-check done" in label

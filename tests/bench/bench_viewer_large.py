@@ -88,21 +88,28 @@ async def frames(app: Any, repeats: int) -> dict[str, Any]:
     Pilot's `pause` waits for the process to go idle, which never happens while a
     background pass (the re-check, the indexing) keeps a core busy; so with the background
     work running, each key is timed from the moment it is sent to the first frame drawn
-    after it, the way a person sees it.
+    after it that shows the key's effect (the cursor or the rows changed), the way a person
+    sees it: a frame the background work asked for before the key was handled is not it.
     """
     from textual import events
 
     drawn = [0]
     display = app._display
 
+    def state() -> tuple[int, str, int]:
+        return app.cursor, app.model.filter.text, len(app.model.rows)
+
+    armed = [state()]
+
     def counted(screen: Any, renderable: Any) -> None:
-        if renderable is not None:
+        if renderable is not None and state() != armed[0]:
             drawn[0] += 1
         display(screen, renderable)
 
     app._display = counted
 
     async def timed(key: str) -> float:
+        armed[0] = state()
         before, began = drawn[0], time.perf_counter()
         event = events.Key(key, None)
         event.set_sender(app)
