@@ -19,6 +19,7 @@ from typing import Any
 
 import numpy as np
 
+from tracer.analysis.lazy_tree import lazy_view
 from tracer.analysis.tree_index import TreeIndex
 from tracer.base.frames import EndInfo
 from tracer.formats.load import load_instance
@@ -76,10 +77,11 @@ def main() -> list[dict[str, str]]:
     rng = np.random.default_rng(1)
     probes = rng.integers(0, lazy.count, PROBES).tolist()
     lazy_tree = lazy.tree
+    lazy_index = lazy_view(lazy)[1]  # the viewer's tree index on a block-read trail
     step = per_call(lambda n: [lazy.column(c.name, n, n + 1) for c in lazy.header.columns], probes)
     mem_step = per_call(lambda n: [trail.columns[c.name][n] for c in lazy.header.columns], probes)
     paths = [tree.path(n) for n in probes]
-    jump = per_call(lambda i: lazy_tree.node_for_prefix(paths[i]), list(range(PROBES)))
+    jump = per_call(lambda i: lazy_index.node_for_prefix(paths[i]), list(range(PROBES)))
     mem_jump = per_call(lambda i: tree.node_for_prefix(paths[i]), list(range(PROBES)))
     end = per_call(lazy_tree.subtree_end, probes)
     mem_end = per_call(lambda n: int(tree.end[n]), probes)

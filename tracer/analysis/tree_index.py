@@ -113,11 +113,13 @@ class TreeIndex:
         if not prefix or self.count == 0 or int(self.city[0]) != prefix[0]:
             return None
         node = 0
-        for city in prefix[1:]:
-            match = next((c for c in self.children(node) if int(self.city[c]) == city), None)
-            if match is None:
+        for city in prefix[1:]:  # over `node`'s children, stopping at the match
+            child, stop = node + 1, int(self.end[node])
+            while child < stop and int(self.city[child]) != city:
+                child = int(self.end[child])
+            if child >= stop:
                 return None
-            node = match
+            node = child
         return node
 
     # -- counts and incumbents -----------------------------------------------------------
