@@ -10,10 +10,8 @@ questions as `read_trail` and `TreeIndex`; then the viewer's model and the app i
 
 from __future__ import annotations
 
-import contextlib
 import functools
 import math
-import threading
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -26,6 +24,7 @@ import tui.app
 import tui.loading
 import tui.model
 from tests.foreign_traces import write_jsonl
+from tests.live import live_run
 from tests.test_blocks import _orphans, _read, rewrite, solve
 from tests.test_streaming import _best_first_trace
 from tests.test_viewer_panels import _text
@@ -46,7 +45,7 @@ from tracer.analysis import (
     recompute_node,
 )
 from tracer.base import DECISION_NAMES, ORPHAN, Trail
-from tracer.trails import BlockFile, LazyColumn, TrailWriter, open_blocks
+from tracer.trails import BlockFile, LazyColumn, open_blocks
 from tracer.trails.jsonl import import_jsonl
 from tracer.trails.reader import read_trail
 from tui.app import PrunetrailApp
@@ -748,43 +747,6 @@ async def test_start_options_wait_for_the_index(
         assert (app.model.rows.lo, app.model.rows.hi) == (lo, hi)
 
 
-def _write_blocks(writer: TrailWriter, trail: Trail, lo: int, hi: int, size: int) -> None:
-    """Records [lo, hi) of `trail` in blocks of `size`, each best update before its block."""
-    for start in range(lo, hi, size):
-        stop = min(hi, start + size)
-        for update in trail.best:
-            if start <= update.at < stop or (start == 0 and update.at < 0):
-                writer.write_best(update)
-        writer.write_nodes({k: v[start:stop] for k, v in trail.columns.items()})
-
-
-@contextlib.contextmanager
-def _live_run(
-    path: Path, trail: Trail, first: int, step: int, pause: float
-) -> Iterator[threading.Event]:
-    """A run writing `trail` to `path`: records [0, first) at once, then, once the event it
-    yields is set, the rest `step` at a time `pause` seconds apart, and the run's end."""
-    writer = TrailWriter(path, trail.header, threaded=False)
-    _write_blocks(writer, trail, 0, first, 1000)
-    go = threading.Event()
-
-    def write_rest() -> None:
-        go.wait(10)
-        for lo in range(first, trail.count, step):
-            _write_blocks(writer, trail, lo, min(lo + step, trail.count), 1000)
-            time.sleep(pause)
-        assert trail.end is not None
-        writer.close(trail.end)
-
-    thread = threading.Thread(target=write_rest)
-    thread.start()
-    try:
-        yield go
-    finally:
-        go.set()
-        thread.join()
-
-
 @pytest.mark.asyncio
 async def test_live_trail_grows_in_the_block_viewer(
     memory: dict[str, tuple[Trail, TreeIndex]],
@@ -798,7 +760,7 @@ async def test_live_trail_grows_in_the_block_viewer(
     monkeypatch.setattr(tui.app, "FOLLOW_INTERVAL", 0.1)
     monkeypatch.setattr(tui.app, "INDEX_SNAPSHOT_SECONDS", 0.1)
     path = tmp_path / "live.trail"
-    with _live_run(path, whole, 30_000, 1000, 0.1) as go:
+    with live_run(path, whole, 30_000, 1000, 0.1) as go:
         app = PrunetrailApp(path, memory_mb=1, background=False)
         counts = []
         async with app.run_test(size=SIZE) as pilot:
@@ -828,7 +790,7 @@ async def test_live_block_trail_is_rechecked_to_its_end(
     monkeypatch.setattr(tui.app, "FOLLOW_INTERVAL", 0.1)
     monkeypatch.setattr(tui.app, "INDEX_SNAPSHOT_SECONDS", 0.1)
     path = tmp_path / "live.trail"
-    with _live_run(path, whole, 20_000, 5000, 0.2) as go:
+    with live_run(path, whole, 20_000, 5000, 0.2) as go:
         app = PrunetrailApp(path, memory_mb=1)
         async with app.run_test(size=SIZE) as pilot:
             for _ in range(50):  # the first pass, over the first snapshot

@@ -10,8 +10,6 @@ from __future__ import annotations
 import html
 import json
 import re
-import threading
-import time
 from pathlib import Path
 
 import numpy as np
@@ -19,6 +17,7 @@ import pytest
 from textual.geometry import Region
 from textual.widgets import Input
 
+from tests.live import live_run
 from tests.reference import instance_path
 from tracer.analysis import (
     TreeIndex,
@@ -339,6 +338,7 @@ async def test_play_pauses_where_the_stop_list_holds(faulty):
         await app.workers.wait_for_complete()
         await pilot.pause()
         after = app._play_target
+        assert after is not None, "a second stop ahead"
         assert after == next_match(cond, model.trail, model.index, expected, 1, wrong_ids=None)
         app._pause()
         app.goto(after + 5)  # as if play went past the stop before the search ended
@@ -469,33 +469,86 @@ async def test_live_follow_while_a_writer_appends(faulty, tmp_path):
     """A trail being written is followed: new nodes appear, the end frame ends `live`."""
     source = open_trail(faulty)
     path = tmp_path / "live.trail"
-    writer = TrailWriter(path, source.header, threaded=False)
-    writer.write_nodes({k: v[:500] for k, v in source.columns.items()})
-    go = threading.Event()
+    with live_run(path, source, 500, 500, 0.05, block=500) as go:
+        app = PrunetrailApp(path, background=False)
+        async with app.run_test(size=SIZE) as pilot:
+            assert app.model.live and app.model.count == 500
+            assert "live" in _plain_top(app)
+            go.set()
+            for _ in range(100):
+                await pilot.pause(0.1)
+                if app.model.trail.end is not None:
+                    break
+            assert app.model.count == source.count
+            assert app.model.status == source.end.status
+            assert "live" not in _plain_top(app).split("  ")[2]
 
-    def write_rest() -> None:
-        go.wait(10)
-        for lo in range(500, source.count, 500):
-            writer.write_nodes({k: v[lo : lo + 500] for k, v in source.columns.items()})
-            time.sleep(0.05)
-        assert source.end is not None
-        writer.close(source.end)
 
-    thread = threading.Thread(target=write_rest)
-    thread.start()
-    app = PrunetrailApp(path, background=False)
-    async with app.run_test(size=SIZE) as pilot:
-        assert app.model.live and app.model.count == 500
-        assert "live" in _plain_top(app)
-        go.set()
-        for _ in range(100):
-            await pilot.pause(0.1)
-            if app.model.trail.end is not None:
-                break
-        thread.join()
-        assert app.model.count == source.count
-        assert app.model.status == source.end.status
-        assert "live" not in _plain_top(app).split("  ")[2]
+@pytest.mark.asyncio
+async def test_play_finds_its_stop_among_nodes_written_while_it_plays(faulty, tmp_path):
+    """Playing on a live trail toward a stop that is not yet written: once the run writes it,
+    play pauses there (the stop is looked for again as the trail grows)."""
+    source = open_trail(faulty)
+    index = TreeIndex(source.columns, source.best)
+    # A node past the first 500 records whose own path is met first at that node.
+    stop = next(n for n in range(700, source.count) if int(index.parent[n]) < 500)
+    cond = parse_stops("under " + " ".join(map(str, index.path(stop))))
+    assert next_match(cond, source, index, 100, 1, wrong_ids=None) == stop
+    path = tmp_path / "live.trail"
+    with live_run(path, source, 500, 500, 0.05, block=500) as go:
+        app = _app(path)
+        async with app.run_test(size=SIZE) as pilot:
+            _without_map(app)
+            app.stops = cond
+            app.goto(100)
+            await pilot.press("space")
+            assert app._play_timer is not None
+            app._play_timer.stop()  # playing, with ticks driven by the test
+            app._play_timer = app.set_interval(60, app._tick)
+            await _play_search_ended(app, pilot)
+            assert app._play_target is None  # not among the 500 nodes written so far
+            go.set()
+            for _ in range(100):
+                await pilot.pause(0.1)
+                if app.model.trail.end is not None:
+                    break
+            assert app.model.count == source.count
+            await _play_search_ended(app, pilot)
+            assert app._play_target == stop
+            while app._play_timer is not None and app.cursor < source.count - 1:
+                app._tick()
+            assert app.cursor == stop
+
+
+async def _play_search_ended(app: PrunetrailApp, pilot) -> None:
+    """Wait for the search for play's stop (not the follower, which runs to the trail's end)."""
+    for _ in range(100):
+        await pilot.pause(0.05)
+        if not app._play_looking:
+            return
+    raise AssertionError("the search for play's stop did not end")
+
+
+@pytest.mark.asyncio
+async def test_bookmarks_past_a_live_trails_end_are_kept(faulty, tmp_path):
+    """A bookmark on a node the live run has not written yet survives opening and saving."""
+    source = open_trail(faulty)
+    path = tmp_path / "live.trail"
+    ahead = {"node": 2500, "note": "written later"}
+    sidecar_path(path).write_text(
+        json.dumps({"format": "prunetrail-bookmarks", "version": 1, "bookmarks": [ahead]})
+    )
+    with live_run(path, source, 500, 500, 0.05, block=500):
+        app = _app(path)
+        async with app.run_test(size=SIZE) as pilot:
+            assert app.model.live and app.model.count == 500
+            assert [b.node for b in app.bookmarks] == [2500]
+            app.goto(42)
+            await pilot.press("a")
+            app.screen.query_one("#note").value = "here"
+            await pilot.press("enter")
+    saved = json.loads(sidecar_path(path).read_text())["bookmarks"]
+    assert saved == [{"node": 42, "note": "here"}, ahead]
 
 
 @pytest.mark.asyncio

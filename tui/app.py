@@ -76,7 +76,7 @@ INDEX_STEP_BYTES = 16 << 20
 INDEX_SNAPSHOT_SECONDS = 0.5
 
 
-#: Node count assumed for bookmarks while a trail's index is incomplete (ids are int64).
+#: Node count assumed for bookmarks while a trail is indexed or followed (ids are int64).
 _UNKNOWN_COUNT = 1 << 62
 
 
@@ -137,9 +137,10 @@ class RunFinished(Message):
 
 
 class PlayStop(Message):
-    """Where the play started as `run` pauses: the next node meeting the stop list."""
+    """Where the play started as `run` pauses: the next node meeting the stop list (None:
+    none among the nodes the search saw)."""
 
-    def __init__(self, node: int, run: int) -> None:
+    def __init__(self, node: int | None, run: int) -> None:
         super().__init__()
         self.node = node
         self.run = run
@@ -264,6 +265,8 @@ class PrunetrailApp(App[None]):
         self._play_timer: Timer | None = None
         self._play_target: int | None = None
         self._play_run = 0  # bumped whenever a stop being looked for goes out of date
+        self._play_looking = False  # a search for the play's stop is running
+        self._play_look_again = False  # ... and the trail grew meanwhile
         self._why_report: WhyReport | None = None
         self._rechecking = False  # a block-read trail's re-check pass is running
         self._stats: DepthStats | None = None  # a block-read trail's, once streamed
@@ -272,9 +275,10 @@ class PrunetrailApp(App[None]):
         self._pending_at: int | None = None
         self._start = self._starting_view(at, prefix, filter)
         self._bookmark_file = sidecar_path(trail.path)
-        # While a trail read block by block is still indexed, its count is not yet known:
-        # keep every bookmark (saving drops none that the rest of the file holds).
-        known = trail.count if blocks is None or not blocks.indexing else _UNKNOWN_COUNT
+        # While a trail is still indexed or followed, its count is not yet known: keep every
+        # bookmark (saving drops none that the rest of the file, or of the run, holds).
+        growing = self._follower is not None or (blocks is not None and blocks.indexing)
+        known = _UNKNOWN_COUNT if growing else trail.count
         self.bookmarks, bookmark_notice = load_bookmarks(self._bookmark_file, known)
         self._notices = [n for n in (self._notice, bookmark_notice) if n]
         self._keymap_file = keymap_path()
@@ -574,30 +578,49 @@ class PrunetrailApp(App[None]):
         if self._play_timer is not None:
             self._pause()
             return
-        self._forget_play_stop()
-        if not self.stops.empty:
-            self._find_play_stop(self.stops, self.cursor, self._play_run)
         self._play_timer = self.set_interval(1 / SPEEDS[self._speed], self._tick)
+        self._forget_play_stop()
         self._update_top()
 
     def _forget_play_stop(self) -> None:
+        """The stop list or the rows changed: the stop found (or being looked for) is out of
+        date; while playing, look again from the cursor."""
         self._play_target = None
         self._play_run += 1
+        self._look_for_play_stop()
 
-    @work(thread=True, exclusive=True, group="play", exit_on_error=False)
+    def _look_for_play_stop(self) -> None:
+        """While playing with a stop list and no stop found yet, look for it; one search at a
+        time (one asked for meanwhile is made once the running one ends)."""
+        if self._play_timer is None or self.stops.empty or self._play_target is not None:
+            return
+        if self._play_looking:
+            self._play_look_again = True
+            return
+        self._play_looking = True
+        self._find_play_stop(self.stops, self.cursor, self._play_run)
+
+    @work(thread=True, group="play", exit_on_error=False)
     def _find_play_stop(self, condition: StopCondition, start: int, run: int) -> None:
         """Where play pauses, looked for off the UI thread (on a trail read block by block, a
         rare stop can take seconds to reach); the play goes on meanwhile."""
-        found = self.model.run_until(condition, start, 1)
-        if found is not None and not get_current_worker().is_cancelled:
+        found: int | None = None
+        try:
+            found = self.model.run_until(condition, start, 1)
+        finally:  # every search's end is heard of, so the next one can start
             self.post_message(PlayStop(found, run))
 
     def on_play_stop(self, message: PlayStop) -> None:
-        if message.run != self._play_run or self._play_timer is None:
-            return
-        self._play_target = message.node
-        if self.cursor >= message.node:  # played past it before it was found
-            self._pause_at(message.node)
+        self._play_looking = False
+        again = self._play_look_again or message.run != self._play_run
+        self._play_look_again = False
+        node = message.node
+        if message.run == self._play_run and node is not None and self._play_timer is not None:
+            self._play_target = node
+            if self.cursor >= node:  # played past it before it was found
+                self._pause_at(node)
+        elif again:
+            self._look_for_play_stop()
 
     def _pause_at(self, node: int) -> None:
         self.goto(node)
@@ -656,17 +679,13 @@ class PrunetrailApp(App[None]):
         except FilterError as exc:
             self.notify(str(exc), title="Filter", severity="error", markup=False)
             return
-        self._rows_changed()
+        self._node_list.reload()
         if len(self.model.rows) and not self.model.rows.holds(self.cursor):
             row = min(self.model.rows.row_of(self.cursor), len(self.model.rows) - 1)
             self.goto(self.model.rows.id_at(row))
         else:
             self.goto(self.cursor)
-
-    def _rows_changed(self) -> None:
-        nodes = self._node_list
-        nodes.reload()
-        self._forget_play_stop()
+        self._forget_play_stop()  # after the cursor moved into the rows
 
     # -- background work -----------------------------------------------------------------
 
@@ -868,7 +887,8 @@ class PrunetrailApp(App[None]):
             self.notify(dropped, severity="warning", timeout=8, markup=False)
         if model.count != before:  # what was worked out for fewer nodes is out of date
             self._stats = self._why_report = None
-        self._rows_changed()
+        self._node_list.reload()
+        self._look_for_play_stop()  # a stop found stays (ids keep), one not found may be new
         pending = self._pending_at
         if pending is not None and (pending < model.count or model.settled):
             self._pending_at = None
