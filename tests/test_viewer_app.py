@@ -475,10 +475,7 @@ async def test_live_follow_while_a_writer_appends(faulty, tmp_path):
             assert app.model.live and app.model.count == 500
             assert "live" in _plain_top(app)
             go.set()
-            for _ in range(100):
-                await pilot.pause(0.1)
-                if app.model.trail.end is not None:
-                    break
+            await _run_ended(app, pilot)
             assert app.model.count == source.count
             assert app.model.status == source.end.status
             assert "live" not in _plain_top(app).split("  ")[2]
@@ -508,16 +505,21 @@ async def test_play_finds_its_stop_among_nodes_written_while_it_plays(faulty, tm
             await _play_search_ended(app, pilot)
             assert app._play_target is None  # not among the 500 nodes written so far
             go.set()
-            for _ in range(100):
-                await pilot.pause(0.1)
-                if app.model.trail.end is not None:
-                    break
+            await _run_ended(app, pilot)
             assert app.model.count == source.count
             await _play_search_ended(app, pilot)
             assert app._play_target == stop
             while app._play_timer is not None and app.cursor < source.count - 1:
                 app._tick()
             assert app.cursor == stop
+
+
+async def _run_ended(app: PrunetrailApp, pilot) -> None:
+    """Wait (up to 10 s) for the followed run's end frame to reach the viewer."""
+    for _ in range(100):
+        await pilot.pause(0.1)
+        if app.model.trail.end is not None:
+            return
 
 
 async def _play_search_ended(app: PrunetrailApp, pilot) -> None:
