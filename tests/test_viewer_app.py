@@ -33,7 +33,7 @@ from tracer.base import DECISION, DECISION_NAMES, LINK_IN, LINK_OUT, PARTIAL, TR
 from tracer.cli import main as tracer_main
 from tracer.trails import TrailWriter, open_trail
 from tui.app import SPEEDS, PlayStop, PrunetrailApp, RecheckProgress
-from tui.bookmarks import sidecar_path
+from tui.bookmarks import Bookmark, save_bookmarks, sidecar_path
 from tui.cli import main as viewer_main
 from tui.dialogs import BookmarksScreen, HelpScreen, StopDialog
 from tui.loading import start_loading
@@ -343,10 +343,10 @@ async def test_play_pauses_where_the_stop_list_holds(faulty):
         app._pause()
         app.goto(after + 5)  # as if play went past the stop before the search ended
         app._play_timer = app.set_interval(60, app._tick)
-        app.post_message(PlayStop(after, app._play_run - 1))  # out of date: ignored
+        app.post_message(PlayStop(after, app._play_run - 1, model.count))  # out of date: ignored
         await pilot.pause()
         assert app.cursor == after + 5 and app._play_timer is not None
-        app.post_message(PlayStop(after, app._play_run))
+        app.post_message(PlayStop(after, app._play_run, model.count))
         await pilot.pause()
         assert app.cursor == after and app._play_timer is None
 
@@ -496,6 +496,14 @@ async def test_play_finds_its_stop_among_nodes_written_while_it_plays(faulty, tm
         app = _app(path)
         async with app.run_test(size=SIZE) as pilot:
             _without_map(app)
+            starts: list[int] = []
+            run_until = app.model.run_until
+
+            def recorded(condition, node, direction):
+                starts.append(node)
+                return run_until(condition, node, direction)
+
+            app.model.run_until = recorded
             app.stops = cond
             app.goto(100)
             await pilot.press("space")
@@ -509,6 +517,8 @@ async def test_play_finds_its_stop_among_nodes_written_while_it_plays(faulty, tm
             assert app.model.count == source.count
             await _play_search_ended(app, pilot)
             assert app._play_target == stop
+            # the first search covered the first 500 nodes; the next ones start past them
+            assert starts[0] == 100 and min(starts[1:]) >= 499, starts
             while app._play_timer is not None and app.cursor < source.count - 1:
                 app._tick()
             assert app.cursor == stop
@@ -536,10 +546,7 @@ async def test_bookmarks_past_a_live_trails_end_are_kept(faulty, tmp_path):
     """A bookmark on a node the live run has not written yet survives opening and saving."""
     source = open_trail(faulty)
     path = tmp_path / "live.trail"
-    ahead = {"node": 2500, "note": "written later"}
-    sidecar_path(path).write_text(
-        json.dumps({"format": "prunetrail-bookmarks", "version": 1, "bookmarks": [ahead]})
-    )
+    save_bookmarks(sidecar_path(path), [Bookmark(2500, "written later")])
     with live_run(path, source, 500, 500, 0.05, block=500):
         app = _app(path)
         async with app.run_test(size=SIZE) as pilot:
@@ -550,7 +557,7 @@ async def test_bookmarks_past_a_live_trails_end_are_kept(faulty, tmp_path):
             app.screen.query_one("#note").value = "here"
             await pilot.press("enter")
     saved = json.loads(sidecar_path(path).read_text())["bookmarks"]
-    assert saved == [{"node": 42, "note": "here"}, ahead]
+    assert saved == [{"node": 42, "note": "here"}, {"node": 2500, "note": "written later"}]
 
 
 @pytest.mark.asyncio

@@ -138,12 +138,13 @@ class RunFinished(Message):
 
 class PlayStop(Message):
     """Where the play started as `run` pauses: the next node meeting the stop list (None:
-    none among the nodes the search saw)."""
+    none among the first `seen` nodes, the count when the search started)."""
 
-    def __init__(self, node: int | None, run: int) -> None:
+    def __init__(self, node: int | None, run: int, seen: int) -> None:
         super().__init__()
         self.node = node
         self.run = run
+        self.seen = seen
 
 
 class OracleReady(Message):
@@ -267,6 +268,7 @@ class PrunetrailApp(App[None]):
         self._play_run = 0  # bumped whenever a stop being looked for goes out of date
         self._play_looking = False  # a search for the play's stop is running
         self._play_look_again = False  # ... and the trail grew meanwhile
+        self._play_seen = 0  # nodes a search found no stop among (the next starts there)
         self._why_report: WhyReport | None = None
         self._rechecking = False  # a block-read trail's re-check pass is running
         self._stats: DepthStats | None = None  # a block-read trail's, once streamed
@@ -587,6 +589,7 @@ class PrunetrailApp(App[None]):
         date; while playing, look again from the cursor."""
         self._play_target = None
         self._play_run += 1
+        self._play_seen = 0
         self._look_for_play_stop()
 
     def _look_for_play_stop(self) -> None:
@@ -598,23 +601,27 @@ class PrunetrailApp(App[None]):
             self._play_look_again = True
             return
         self._play_looking = True
-        self._find_play_stop(self.stops, self.cursor, self._play_run)
+        start = max(self.cursor, self._play_seen - 1)  # not again over what was searched
+        self._find_play_stop(self.stops, start, self._play_run, self.model.count)
 
     @work(thread=True, group="play", exit_on_error=False)
-    def _find_play_stop(self, condition: StopCondition, start: int, run: int) -> None:
+    def _find_play_stop(self, condition: StopCondition, start: int, run: int, seen: int) -> None:
         """Where play pauses, looked for off the UI thread (on a trail read block by block, a
         rare stop can take seconds to reach); the play goes on meanwhile."""
         found: int | None = None
+        searched = 0  # a search that fails has searched nothing
         try:
-            found = self.model.run_until(condition, start, 1)
+            found, searched = self.model.run_until(condition, start, 1), seen
         finally:  # every search's end is heard of, so the next one can start
-            self.post_message(PlayStop(found, run))
+            self.post_message(PlayStop(found, run, searched))
 
     def on_play_stop(self, message: PlayStop) -> None:
         self._play_looking = False
         again = self._play_look_again or message.run != self._play_run
         self._play_look_again = False
         node = message.node
+        if message.run == self._play_run and node is None:
+            self._play_seen = message.seen
         if message.run == self._play_run and node is not None and self._play_timer is not None:
             self._play_target = node
             if self.cursor >= node:  # played past it before it was found
